@@ -1,0 +1,39 @@
+"""levelform: stiffest plate layouts by the level-set method, exported as clean outlines.
+
+Typical use::
+
+    import levelform
+    problem = levelform.load_problem("bracket.toml")
+    result = levelform.optimize(problem)
+    levelform.export(result, "out/")
+
+A concept-design aid, not a code check: verify with local codes and a licensed engineer.
+"""
+from __future__ import annotations
+
+__version__ = "0.1.0"
+
+__all__ = ["load_problem", "optimize", "export", "ProblemError", "__version__"]
+
+from .spec import ProblemError
+
+
+def load_problem(path):
+    """Read and validate a TOML problem file; raises ProblemError listing every problem."""
+    from .problem import load_problem as _load
+
+    return _load(path)
+
+
+def optimize(problem, progress=None):
+    """Run the method named in ``problem.method.name``; returns a Result."""
+    from .methods import optimize as _optimize
+
+    return _optimize(problem, progress=progress)
+
+
+def export(result, outdir):
+    """Write outlines, figures, history and summary of a Result into ``outdir``."""
+    from .outputs import export as _export
+
+    return _export(result, outdir)

@@ -1,0 +1,159 @@
+"""The ``levelform`` command: demo, run, check."""
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+from importlib import resources
+from pathlib import Path
+
+from . import __version__
+from .spec import CAUTION, ProblemError
+
+EXIT_OK, EXIT_FAIL, EXIT_BAD_INPUT = 0, 1, 2
+
+
+def _parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(
+        prog="levelform",
+        description="Stiffest plate layouts by the level-set method, exported as clean outlines "
+        "(SVG, DXF, GeoJSON) with figures and a summary.",
+        epilog=CAUTION,
+    )
+    p.add_argument("--version", action="version", version=f"levelform {__version__}")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND")
+
+    d = sub.add_parser("demo", help="write an example problem into a folder, run it, show where the results are")
+    d.add_argument("folder", nargs="?", default="levelform-demo", help="folder for the demo (default: levelform-demo)")
+    d.add_argument("-q", "--quiet", action="store_true", help="no per-iteration progress lines")
+
+    r = sub.add_parser("run", help="optimize a problem file and write outlines, figures and a summary")
+    r.add_argument("problem", help="problem file (TOML, see docs/problem-format.md)")
+    r.add_argument("-o", "--out", metavar="OUTDIR", help="output folder (default: <problem name>-results next to the file)")
+    r.add_argument("--method", help="override [method] name (levelset)")
+    r.add_argument("--overwrite", action="store_true", help="replace the results in an existing output folder")
+    r.add_argument("-q", "--quiet", action="store_true", help="no per-iteration progress lines")
+
+    c = sub.add_parser("check", help="validate a problem file and estimate its size, without solving")
+    c.add_argument("problem", help="problem file (TOML)")
+    return p
+
+
+def _errors(problems) -> int:
+    for msg in problems:
+        print(f"error: {msg}", file=sys.stderr)
+    return EXIT_BAD_INPUT
+
+
+def _progress_line(rec) -> None:
+    print(
+        f"iter {rec.iteration:4d}  compliance {rec.compliance:12.6g}  material {rec.material_fraction:6.4f}"
+        f" (target {rec.target_fraction:6.4f})  step {rec.step:8.4g}",
+        flush=True,
+    )
+
+
+def _with_method(problem, name):
+    import dataclasses
+
+    if not name:
+        return problem
+    from .methods import METHODS
+
+    if name not in METHODS:
+        raise ProblemError([f"--method: unknown method {name!r}; valid: {', '.join(sorted(METHODS))}"])
+    return dataclasses.replace(problem, method=dataclasses.replace(problem.method, name=name))
+
+
+def _solve_and_export(problem, outdir: Path, quiet: bool, overwrite: bool) -> int:
+    from .methods import optimize
+    from .outputs import export
+
+    if outdir.exists() and not outdir.is_dir():
+        return _errors([f"-o: {outdir} exists and is not a folder"])
+    if outdir.is_dir() and any(outdir.iterdir()) and not overwrite:
+        return _errors([f"-o: output folder {outdir} is not empty; pass --overwrite to replace its results or choose another folder"])
+    print(f"levelform {__version__}: {problem.name} ({problem.method.name})", flush=True)
+    result = optimize(problem, progress=None if quiet else _progress_line)
+    files = export(result, outdir)
+    u = problem.units
+    print(
+        f"\n{result.status} after {result.iterations} iterations in {result.seconds:.1f} s\n"
+        f"  compliance         {result.compliance:.6g} {u.compliance}\n"
+        f"  material fraction  {result.material_fraction:.4f} (goal {problem.goal.material:.4f})\n"
+        f"  outline area       {result.outline.area:.6g} {u.length}^2, "
+        f"{sum(len(p.interiors) for p in getattr(result.outline, 'geoms', [])):d} holes\n"
+        f"  results in         {outdir}{os.sep} ({', '.join(sorted(files))})\n\nCaution: {CAUTION}",
+        flush=True,
+    )
+    return EXIT_OK
+
+
+def cmd_run(args) -> int:
+    from .problem import load_problem
+
+    problem = _with_method(load_problem(args.problem), args.method)
+    out = Path(args.out) if args.out else Path(args.problem).with_name(f"{Path(args.problem).stem}-results")
+    return _solve_and_export(problem, out, args.quiet, args.overwrite)
+
+
+def cmd_check(args) -> int:
+    from .grid import build_model
+    from .problem import load_problem
+    from .resources import estimate_memory_bytes
+
+    problem = load_problem(args.problem)
+    model = build_model(problem)
+    g = model.grid
+    st = model.settings
+    u = problem.units.length
+    print(
+        f"{args.problem}: valid\n"
+        f"  grid               {g.nx} x {g.ny} cells of {g.h:g} {u}, {model.n_cells} inside the domain\n"
+        f"  degrees of freedom {model.n_dof} ({model.n_free} free)\n"
+        f"  load cases         {', '.join(model.case_names)}\n"
+        f"  memory estimate    {estimate_memory_bytes(model.n_cells) / 2**30:.2f} GiB\n"
+        f"  smoothing {st.smoothing:.4g} {u}, pad radius {st.pad_radius:.4g} {u}, step {st.step:.4g} {u}, "
+        f"hole spacing {st.hole_spacing:.4g} {u}"
+    )
+    return EXIT_OK
+
+
+def cmd_demo(args) -> int:
+    from .problem import load_problem
+
+    folder = Path(args.folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    text = resources.files("levelform").joinpath("demo/sign_bracket.toml").read_text(encoding="utf-8")
+    path = folder / "sign_bracket.toml"
+    from .outputs import atomic_write_text
+
+    atomic_write_text(path, text)
+    print(f"wrote the demo problem {path}")
+    problem = load_problem(path)
+    return _solve_and_export(problem, folder / "results", args.quiet, overwrite=True)
+
+
+def main(argv=None) -> int:
+    parser = _parser()
+    args = parser.parse_args(argv)
+    if args.command is None:
+        parser.print_help()
+        return EXIT_BAD_INPUT
+    handler = {"run": cmd_run, "check": cmd_check, "demo": cmd_demo}[args.command]
+    try:
+        return handler(args)
+    except ProblemError as exc:
+        return _errors(exc.problems)
+    except KeyboardInterrupt:
+        print("interrupted", file=sys.stderr)
+        return 130
+    except Exception as exc:  # an internal failure: short message, traceback only on request
+        if os.environ.get("LEVELFORM_DEBUG"):
+            raise
+        print(f"error: internal failure ({type(exc).__name__}: {exc}); rerun with LEVELFORM_DEBUG=1 for details", file=sys.stderr)
+        return EXIT_FAIL
+
+
+if __name__ == "__main__":
+    sys.exit(main())

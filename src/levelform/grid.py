@@ -1,0 +1,289 @@
+"""From a problem to its fixed-grid finite-element model.
+
+Cells whose centre lies in the domain are active; only they (and their nodes) enter the
+system. Supports become fixed dofs, loads become nodal force vectors (one column per load
+case), keep regions and pads become signed-distance fields on the nodes.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import shapely
+from scipy import ndimage
+from shapely.geometry import LineString, Point, box as shapely_box
+
+from .geometry import domain_polygon, region_geometry
+from .spec import GridInfo, Problem, ProblemError
+
+
+@dataclass(frozen=True)
+class Settings:
+    """The method settings with every default resolved to a length in model units."""
+
+    smoothing: float
+    pad_radius: float
+    step: float
+    hole_spacing: float
+    iterations: int
+    seed_holes: bool
+    pads: bool
+    volume_step: float
+    ersatz: float
+    solver: str
+
+    def as_dict(self) -> dict:
+        return dict(self.__dict__)
+
+
+def resolve_settings(problem: Problem) -> Settings:
+    """Defaults scale with the domain (L = sqrt(domain area)), never with the cell size,
+    so refining the grid leaves the design unchanged; each is floored so that it stays
+    resolved by at least about one cell on coarse grids."""
+    m = problem.method
+    h = problem.domain.cell
+    L = math.sqrt(domain_polygon(problem).area)
+    smoothing = m.smoothing if m.smoothing is not None else max(0.04 * L, 1.0 * h)
+    pad = m.pad_radius if m.pad_radius is not None else max(0.025 * L, 1.5 * h)
+    step = m.step if m.step is not None else max(0.025 * L, 0.5 * h)
+    spacing = m.hole_spacing if m.hole_spacing is not None else max(L / 4.0, 4.0 * h)
+    return Settings(
+        smoothing=float(smoothing),
+        pad_radius=float(pad),
+        step=float(step),
+        hole_spacing=float(spacing),
+        iterations=int(m.iterations),
+        seed_holes=bool(m.seed_holes),
+        pads=bool(m.pads),
+        volume_step=float(m.volume_step),
+        ersatz=float(m.ersatz),
+        solver=str(m.solver),
+    )
+
+
+@dataclass(frozen=True)
+class Model:
+    grid: GridInfo
+    active: np.ndarray  # (ny, nx) bool
+    node_active: np.ndarray  # (ny+1, nx+1) bool
+    cells: np.ndarray  # flat indices (j * nx + i) of active cells
+    edofs: np.ndarray  # (n_cells, 8) global dofs of each active cell
+    cell_nodes: np.ndarray  # (n_cells, 4) flat node indices (j * (nx+1) + i)
+    node_number: np.ndarray  # flat node index -> active node number or -1
+    n_dof: int
+    free: np.ndarray  # global dof -> free dof number or -1
+    n_free: int
+    forces: np.ndarray  # (n_free, n_cases)
+    case_names: tuple
+    case_weights: np.ndarray
+    solid_sdf: np.ndarray  # (ny+1, nx+1), < 0 inside keep-solid regions and pads; +inf if none
+    empty_sdf: np.ndarray  # (ny+1, nx+1), < 0 inside keep-empty regions; +inf if none
+    settings: Settings
+
+    @property
+    def n_cells(self) -> int:
+        return int(self.cells.size)
+
+    def node_xy(self):
+        g = self.grid
+        x = g.x0 + g.h * np.arange(g.nx + 1)
+        y = g.y0 + g.h * np.arange(g.ny + 1)
+        return np.meshgrid(x, y)
+
+
+def make_grid(problem: Problem) -> GridInfo:
+    h = problem.domain.cell
+    minx, miny, maxx, maxy = domain_polygon(problem).bounds
+    nx = max(1, math.ceil((maxx - minx) / h - 1e-9))
+    ny = max(1, math.ceil((maxy - miny) / h - 1e-9))
+    return GridInfo(nx=nx, ny=ny, x0=minx, y0=miny, h=h)
+
+
+def signed_distance(geom, X: np.ndarray, Y: np.ndarray) -> np.ndarray:
+    """Signed distance to a shapely area geometry: negative inside."""
+    if geom is None or geom.is_empty:
+        return np.full(X.shape, np.inf)
+    pts = shapely.points(X.ravel(), Y.ravel())
+    d = shapely.distance(geom.boundary, pts).reshape(X.shape)
+    inside = shapely.contains_xy(geom, X.ravel(), Y.ravel()).reshape(X.shape)
+    return np.where(inside, -d, d)
+
+
+def _support_geometry(s):
+    if s.kind == "point":
+        return Point(s.where)
+    if s.kind == "segment":
+        return LineString(s.where)
+    return shapely_box(*s.where)
+
+
+def _nodes_near(geom, xy: np.ndarray, tol: float) -> np.ndarray:
+    """Indices into xy of the nodes within tol of geom; the nearest one if none is."""
+    d = shapely.distance(geom, shapely.points(xy[:, 0], xy[:, 1]))
+    idx = np.flatnonzero(d <= tol)
+    if idx.size == 0:
+        idx = np.array([int(np.argmin(d))])
+    return idx
+
+
+def _segment_weights(seg, xy: np.ndarray, idx: np.ndarray) -> np.ndarray:
+    """Tributary lengths along the segment of the chosen nodes (sum = segment length),
+    which for a grid-aligned edge equal the consistent nodal loads of a uniform traction."""
+    (ax, ay), (bx, by) = seg
+    length = math.hypot(bx - ax, by - ay)
+    t = ((xy[idx, 0] - ax) * (bx - ax) + (xy[idx, 1] - ay) * (by - ay)) / length
+    t = np.clip(t, 0.0, length)
+    order = np.argsort(t, kind="stable")
+    ts = t[order]
+    bounds = np.concatenate([[0.0], 0.5 * (ts[1:] + ts[:-1]), [length]])
+    w = np.empty_like(t)
+    w[order] = np.diff(bounds)
+    return w
+
+
+def _uses_pad(item, settings: Settings) -> bool:
+    return settings.pads if item.pad is None else bool(item.pad)
+
+
+def build_model(problem: Problem) -> Model:
+    """Discretize ``problem``; raises ProblemError for a grid-level problem (a piece of the
+    domain without enough support at this cell size)."""
+    settings = resolve_settings(problem)
+    grid = make_grid(problem)
+    nx, ny, h = grid.nx, grid.ny, grid.h
+    domain = domain_polygon(problem)
+
+    xc = grid.x0 + h * (np.arange(nx) + 0.5)
+    yc = grid.y0 + h * (np.arange(ny) + 0.5)
+    XC, YC = np.meshgrid(xc, yc)
+    active = shapely.contains_xy(domain, XC.ravel(), YC.ravel()).reshape(ny, nx)
+    if not active.any():
+        raise ProblemError(["domain.cell: no grid cell has its centre inside the outline; use a smaller cell"])
+
+    jj, ii = np.nonzero(active)
+    cells = jj * nx + ii
+    n0 = jj * (nx + 1) + ii
+    cell_nodes = np.stack([n0, n0 + 1, n0 + nx + 2, n0 + nx + 1], axis=1)
+    node_active_flat = np.zeros((ny + 1) * (nx + 1), bool)
+    node_active_flat[cell_nodes.ravel()] = True
+    node_number = np.full(node_active_flat.size, -1, np.int64)
+    node_number[node_active_flat] = np.arange(int(node_active_flat.sum()))
+    n_nodes = int(node_active_flat.sum())
+    local = node_number[cell_nodes]
+    edofs = np.empty((cells.size, 8), np.int64)
+    edofs[:, 0::2] = 2 * local
+    edofs[:, 1::2] = 2 * local + 1
+    n_dof = 2 * n_nodes
+
+    X, Y = np.meshgrid(grid.x0 + h * np.arange(nx + 1), grid.y0 + h * np.arange(ny + 1))
+    act_flat = np.flatnonzero(node_active_flat)
+    xy = np.column_stack([X.ravel()[act_flat], Y.ravel()[act_flat]])  # active node coordinates
+    tol = 0.5 * h * (1.0 + 1e-9)
+
+    # Supports -> fixed dofs.
+    fixed = np.zeros(n_dof, bool)
+    pads = []
+    for s in problem.supports:
+        g = _support_geometry(s)
+        padded = _uses_pad(s, settings)
+        if s.kind == "point" and padded:
+            idx = _nodes_near(g, xy, settings.pad_radius)
+        elif s.kind == "box":
+            idx = _nodes_near(g, xy, 1e-9 * h)
+        else:
+            idx = _nodes_near(g, xy, tol)
+        if "x" in s.fix:
+            fixed[2 * idx] = True
+        if "y" in s.fix:
+            fixed[2 * idx + 1] = True
+        if padded:
+            pads.append(g.buffer(settings.pad_radius, quad_segs=16))
+
+    # Loads -> nodal forces per case.
+    case_names = tuple(c.name for c in problem.cases)
+    weights = np.array([c.weight for c in problem.cases], float)
+    F = np.zeros((n_dof, len(case_names)))
+    for ld in problem.loads:
+        c = case_names.index(ld.case)
+        padded = _uses_pad(ld, settings)
+        if ld.kind == "point":
+            g = Point(ld.where)
+            idx = _nodes_near(g, xy, settings.pad_radius if padded else 0.0)
+            if not padded:
+                idx = idx[:1]
+            w = np.full(idx.size, 1.0 / idx.size)  # a uniform load over the pad
+        else:
+            g = LineString(ld.where)
+            idx = _nodes_near(g, xy, tol)
+            w = _segment_weights(ld.where, xy, idx)
+        np.add.at(F[:, c], 2 * idx, ld.force[0] * w)
+        np.add.at(F[:, c], 2 * idx + 1, ld.force[1] * w)
+        if padded:
+            pads.append(g.buffer(settings.pad_radius, quad_segs=16))
+
+    _check_mechanisms(active, cell_nodes, node_number, fixed, xy, grid)
+
+    free = np.full(n_dof, -1, np.int64)
+    free[~fixed] = np.arange(int((~fixed).sum()))
+    n_free = int((~fixed).sum())
+    forces = F[~fixed]
+    if not np.any(forces):
+        raise ProblemError(["load: every load acts on a supported node, so nothing deforms; move the loads off the supports"])
+
+    solids = [region_geometry(r) for r in problem.regions if r.keep == "solid"] + pads
+    empties = [region_geometry(r) for r in problem.regions if r.keep == "empty"]
+    solid = shapely.union_all(solids).intersection(domain) if solids else None
+    empty = shapely.union_all(empties) if empties else None
+    solid_sdf = signed_distance(solid, X, Y)
+    empty_sdf = signed_distance(empty, X, Y)
+
+    return Model(
+        grid=grid,
+        active=active,
+        node_active=node_active_flat.reshape(ny + 1, nx + 1),
+        cells=cells,
+        edofs=edofs,
+        cell_nodes=cell_nodes,
+        node_number=node_number,
+        n_dof=n_dof,
+        free=free,
+        n_free=n_free,
+        forces=forces,
+        case_names=case_names,
+        case_weights=weights,
+        solid_sdf=solid_sdf,
+        empty_sdf=empty_sdf,
+        settings=settings,
+    )
+
+
+def _check_mechanisms(active, cell_nodes, node_number, fixed, xy, grid):
+    """Each edge-connected piece of the grid needs supports that stop all three rigid-body
+    motions (x, y, rotation); pieces touching only at a corner are hinged, so they count
+    as separate."""
+    labels, n = ndimage.label(active)  # 4-connectivity: cells sharing an edge
+    lab = labels[active]
+    problems = []
+    scale = max(grid.nx, grid.ny) * grid.h
+    for k in range(1, n + 1):
+        nodes = np.unique(node_number[cell_nodes[lab == k].ravel()])
+        rows = []
+        fx = nodes[fixed[2 * nodes]]
+        fy = nodes[fixed[2 * nodes + 1]]
+        if fx.size:
+            rows.append(np.column_stack([np.ones(fx.size), np.zeros(fx.size), -xy[fx, 1] / scale]))
+        if fy.size:
+            rows.append(np.column_stack([np.zeros(fy.size), np.ones(fy.size), xy[fy, 0] / scale]))
+        C = np.vstack(rows) if rows else np.zeros((0, 3))
+        rank = np.linalg.matrix_rank(C, tol=1e-9) if C.size else 0
+        if rank < 3:
+            cx, cy = xy[nodes].mean(axis=0)
+            where = f" (the piece of the domain around ({cx:.4g}, {cy:.4g}))" if n > 1 else ""
+            problems.append(
+                f"support: the supports leave a rigid-body motion free{where} at this grid "
+                f"(rank {rank} of 3); add a support fixing x, y and rotation"
+                + ("; at this cell size the domain falls into separate pieces: use a smaller domain.cell" if n > 1 else "")
+            )
+    if problems:
+        raise ProblemError(problems)

@@ -1,0 +1,183 @@
+"""Plain, frozen values that describe a problem as the user stated it.
+
+Every length is in the problem's own length unit (``units.length``), every force in
+``units.force``; stresses are force / length^2. Nothing here depends on the grid.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Optional
+
+Point = tuple[float, float]
+
+CAUTION = (
+    "Concept-design aid, not a code check: verify any design with the applicable local "
+    "codes and a licensed engineer before it is built."
+)
+
+
+class ProblemError(ValueError):
+    """Bad input a user can fix. ``problems`` holds one message per problem found.
+
+    Each message names the key path (``load[2].force``) and what would be valid.
+    """
+
+    def __init__(self, problems):
+        if isinstance(problems, str):
+            problems = [problems]
+        self.problems = list(problems)
+        super().__init__("\n".join(self.problems))
+
+
+@dataclass(frozen=True)
+class Units:
+    length: str = "mm"
+    force: str = "N"
+
+    @property
+    def stress(self) -> str:
+        return f"{self.force}/{self.length}^2"
+
+    @property
+    def compliance(self) -> str:
+        return f"{self.force}*{self.length}"
+
+
+@dataclass(frozen=True)
+class Material:
+    E: float
+    nu: float
+    thickness: float
+
+
+@dataclass(frozen=True)
+class Domain:
+    outline: tuple[Point, ...]
+    holes: tuple[tuple[Point, ...], ...]
+    cell: float
+
+
+@dataclass(frozen=True)
+class Support:
+    """``kind`` is "point", "segment" or "box"; ``where`` holds its coordinates:
+    a point (x, y), a segment ((x0, y0), (x1, y1)) or a box (x0, y0, x1, y1)."""
+
+    kind: str
+    where: tuple
+    fix: str  # "x", "y" or "xy"
+    pad: Optional[bool] = None  # None: follow [method] pads
+    key: str = "support"  # key path for messages, e.g. "support[1]"
+
+
+@dataclass(frozen=True)
+class Load:
+    """``kind`` is "point" (``force`` is a force) or "segment" (``force`` is a force
+    per length, acting along the whole segment)."""
+
+    kind: str
+    where: tuple
+    force: tuple[float, float]
+    case: str = "main"
+    pad: Optional[bool] = None
+    key: str = "load"
+
+
+@dataclass(frozen=True)
+class LoadCase:
+    name: str
+    weight: float = 1.0
+
+
+@dataclass(frozen=True)
+class Region:
+    """A keep region: ``keep`` is "solid" or "empty"; ``kind`` is "circle"
+    (cx, cy, r), "box" (x0, y0, x1, y1) or "polygon" ((x, y), ...)."""
+
+    keep: str
+    kind: str
+    where: tuple
+    key: str = "region"
+
+
+@dataclass(frozen=True)
+class Goal:
+    material: float
+
+
+@dataclass(frozen=True)
+class Method:
+    """Optimizer settings. Lengths are in the problem's length unit; ``None`` means
+    "derive a default from the domain size" (see ``levelform.defaults``)."""
+
+    name: str = "levelset"
+    iterations: int = 300
+    smoothing: Optional[float] = None
+    seed_holes: bool = True
+    pads: bool = True
+    pad_radius: Optional[float] = None
+    step: Optional[float] = None
+    hole_spacing: Optional[float] = None
+    volume_step: float = 0.02
+    ersatz: float = 1e-3
+    solver: str = "auto"
+
+
+@dataclass(frozen=True)
+class Problem:
+    units: Units
+    material: Material
+    domain: Domain
+    supports: tuple[Support, ...]
+    loads: tuple[Load, ...]
+    cases: tuple[LoadCase, ...]
+    regions: tuple[Region, ...]
+    goal: Goal
+    method: Method
+    name: str = "problem"
+    source: Optional[str] = None
+    raw: dict = field(default_factory=dict, compare=False, repr=False)
+
+
+@dataclass(frozen=True)
+class GridInfo:
+    """The fixed grid: ``nx`` x ``ny`` square cells of side ``h`` whose lower-left
+    corner is at (``x0``, ``y0``). Node (i, j) sits at (x0 + i h, y0 + j h);
+    nodal arrays have shape (ny + 1, nx + 1), cell arrays (ny, nx)."""
+
+    nx: int
+    ny: int
+    x0: float
+    y0: float
+    h: float
+
+
+@dataclass(frozen=True)
+class IterationRecord:
+    iteration: int
+    compliance: float
+    material_fraction: float
+    target_fraction: float
+    boundary_change: float
+    step: float
+
+
+@dataclass(frozen=True)
+class Result:
+    """What an optimization method returns. ``outline`` is a shapely (Multi)Polygon
+    in model coordinates, valid and oriented (outer rings counter-clockwise)."""
+
+    problem: Problem
+    method: str
+    outline: object
+    compliance: float
+    material_fraction: float
+    iterations: int
+    converged: bool
+    status: str
+    seconds: float
+    history: tuple[IterationRecord, ...]
+    settings: dict
+    grid: GridInfo
+    phi: object = None  # nodal level set (ny+1, nx+1), NaN outside the domain
+    density: object = None  # cell material fraction (ny, nx), NaN outside the domain
+    case_compliance: dict = field(default_factory=dict)
