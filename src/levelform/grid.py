@@ -28,6 +28,7 @@ class Settings:
     hole_spacing: float
     iterations: int
     seed_holes: bool
+    initial_holes: bool
     pads: bool
     volume_step: float
     ersatz: float
@@ -55,6 +56,7 @@ def resolve_settings(problem: Problem) -> Settings:
         hole_spacing=float(spacing),
         iterations=int(m.iterations),
         seed_holes=bool(m.seed_holes),
+        initial_holes=bool(m.initial_holes),
         pads=bool(m.pads),
         volume_step=float(m.volume_step),
         ersatz=float(m.ersatz),

@@ -64,7 +64,7 @@ _CASE_KEYS = ("name", "weight")
 _REGION_KEYS = ("keep", "circle", "box", "polygon")
 _GOAL_KEYS = ("material",)
 _METHOD_LENGTHS = ("smoothing", "pad_radius", "step", "hole_spacing")
-_METHOD_KEYS = ("name", "iterations", "smoothing", "seed_holes", "pads", "pad_radius",
+_METHOD_KEYS = ("name", "iterations", "smoothing", "seed_holes", "initial_holes", "pads", "pad_radius",
                 "step", "hole_spacing", "volume_step", "ersatz", "solver")
 
 
@@ -811,7 +811,7 @@ def _parse_method(data, units, errs):
             _err(errs, "method.iterations", f"expected a whole number from 1 to "
                                             f"{MAX_ITERATIONS}, got {_show(v)}")
             ok = False
-    for key in ("seed_holes", "pads"):
+    for key in ("seed_holes", "initial_holes", "pads"):
         if key in t:
             keep(key, _flag(t, key, "method", errs))
     for key in _METHOD_LENGTHS:

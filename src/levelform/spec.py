@@ -113,6 +113,7 @@ class Method:
     iterations: int = 300
     smoothing: Optional[float] = None
     seed_holes: bool = True
+    initial_holes: bool = False
     pads: bool = True
     pad_radius: Optional[float] = None
     step: Optional[float] = None

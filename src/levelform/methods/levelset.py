@@ -30,7 +30,7 @@ SEED_EVERY, SEED_AREA = 5, 0.02  # hole seeding period (iterations), area opened
 
 def _initial_phi(model, ls: LevelSetGrid, X, Y, settings) -> np.ndarray:
     g = model.grid
-    if settings.seed_holes:
+    if settings.initial_holes:
         s = settings.hole_spacing
         W, H = g.nx * g.h, g.ny * g.h
         origin = (g.x0 + 0.5 * (W - s * max(1, round(W / s))), g.y0 + 0.5 * (H - s * max(1, round(H / s))))
@@ -142,7 +142,11 @@ def run(problem: Problem, progress=None) -> Result:
         seeding_open = goal_reached_at is None or it <= min(goal_reached_at + 10, st.iterations // 2)
         if st.seed_holes and seeding_open and it - last_seed >= SEED_EVERY and it >= SEED_EVERY:
             g_nodes = ls.smooth_cells(system.hole_sensitivity(state))
-            phi_s, n_new = _seed_holes(phi, ls, model, g_nodes, lam, hole_radius, st.hole_spacing, X, Y)
+            # Compliance cost per unit area of removing material at the boundary: the mean
+            # solid energy density over the cut cells (to first order the volume multiplier).
+            cut = (frac > 0.0) & (frac < 1.0)
+            lam_boundary = float(system.energy_density(state)[cut].mean()) if cut.any() else lam
+            phi_s, n_new = _seed_holes(phi, ls, model, g_nodes, lam_boundary, hole_radius, st.hole_spacing, X, Y)
             if n_new:
                 phi = ls.reinitialize(ls.clamp(phi_s, model.solid_sdf, model.empty_sdf))
                 last_seed = it
