@@ -73,7 +73,11 @@ def _solve_and_export(problem, outdir: Path, quiet: bool, overwrite: bool) -> in
         return _errors([f"-o: {outdir} exists and is not a folder"])
     if outdir.is_dir() and any(outdir.iterdir()) and not overwrite:
         return _errors([f"-o: output folder {outdir} is not empty; pass --overwrite to replace its results or choose another folder"])
+    from .grid import resolution_warnings, resolve_settings
+
     print(f"levelform {__version__}: {problem.name} ({problem.method.name})", flush=True)
+    for msg in resolution_warnings(resolve_settings(problem), problem.domain.cell):
+        print(f"warning: {msg}", file=sys.stderr)
     result = optimize(problem, progress=None if quiet else _progress_line)
     files = export(result, outdir)
     u = problem.units
@@ -98,12 +102,14 @@ def cmd_run(args) -> int:
 
 
 def cmd_check(args) -> int:
-    from .grid import build_model
+    from .grid import build_model, resolution_warnings
     from .problem import load_problem
     from .resources import estimate_memory_bytes
 
     problem = load_problem(args.problem)
     model = build_model(problem)
+    for msg in resolution_warnings(model.settings, model.grid.h):
+        print(f"warning: {msg}", file=sys.stderr)
     g = model.grid
     st = model.settings
     u = problem.units.length

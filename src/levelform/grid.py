@@ -64,6 +64,17 @@ def resolve_settings(problem: Problem) -> Settings:
     )
 
 
+def resolution_warnings(settings: Settings, h: float) -> list[str]:
+    """Lengths the grid resolves poorly: the design then depends on the cell size."""
+    out = []
+    if settings.smoothing < 2.0 * h:
+        out.append(
+            f"method.smoothing: {settings.smoothing:.4g} is less than two cells ({2 * h:.4g}); the design "
+            f"will depend on the cell size: use domain.cell <= {settings.smoothing / 2:.4g} or a longer smoothing"
+        )
+    return out
+
+
 @dataclass(frozen=True)
 class Model:
     grid: GridInfo

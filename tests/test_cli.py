@@ -1,0 +1,137 @@
+"""The levelform command line: demo, run, check, and bad input (exit 2, key named, nothing written)."""
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from levelform.cli import main
+
+EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
+OUTPUTS = {"outline.svg", "outline.dxf", "outline.geojson", "design.png", "history.png", "history.csv", "summary.json"}
+
+SMALL = """
+name = "small test plate"
+[material]
+E = 1000.0
+nu = 0.3
+thickness = 1.0
+[domain]
+outline = [[0, 0], [40, 0], [40, 20], [0, 20]]
+cell = 2.0
+[[support]]
+segment = [[0, 0], [0, 20]]
+fix = "xy"
+[[load]]
+point = [40, 10]
+force = [0, -1]
+[goal]
+material = 0.5
+[method]
+iterations = 30
+"""
+
+
+def _write(tmp_path, text, name="p.toml"):
+    path = tmp_path / name
+    path.write_text(text)
+    return path
+
+
+def test_demo_writes_problem_and_results(tmp_path, capsys):
+    assert main(["demo", str(tmp_path / "d"), "-q"]) == 0
+    out = capsys.readouterr().out
+    assert (tmp_path / "d" / "sign_bracket.toml").is_file()
+    assert OUTPUTS <= {p.name for p in (tmp_path / "d" / "results").iterdir()}
+    assert "results in" in out and "licensed engineer" in out
+
+
+def test_run_prints_progress_summary_and_caution(tmp_path, capsys):
+    prob = _write(tmp_path, SMALL)
+    out_dir = tmp_path / "out"
+    assert main(["run", str(prob), "-o", str(out_dir)]) == 0
+    out = capsys.readouterr().out
+    assert "iter    1" in out and "compliance" in out and "material" in out
+    assert "not a code check" in out
+    summary = json.loads((out_dir / "summary.json").read_text())
+    for key in ("compliance", "material_fraction", "iterations", "converged", "seconds", "outline_area",
+                "holes", "units", "settings", "software"):
+        assert key in summary
+    assert summary["units"]["length"] == "mm"
+
+
+def test_existing_output_folder_is_not_overwritten_without_flag(tmp_path, capsys):
+    prob = _write(tmp_path, SMALL)
+    out_dir = tmp_path / "out"
+    out_dir.mkdir()
+    keep = out_dir / "notes.txt"
+    keep.write_text("mine")
+    assert main(["run", str(prob), "-o", str(out_dir), "-q"]) == 2
+    assert "--overwrite" in capsys.readouterr().err
+    assert sorted(p.name for p in out_dir.iterdir()) == ["notes.txt"]
+    assert main(["run", str(prob), "-o", str(out_dir), "-q", "--overwrite"]) == 0
+    assert keep.read_text() == "mine"
+
+
+def test_check_reports_size_without_solving(tmp_path, capsys):
+    assert main(["check", str(EXAMPLES / "mbb_half_beam.toml")]) == 0
+    out = capsys.readouterr().out
+    assert "120 x 40 cells" in out and "degrees of freedom" in out and "memory estimate" in out
+
+
+BAD = [
+    ("material.E", SMALL.replace("E = 1000.0", "E = -5.0")),
+    ("material.nu", SMALL.replace("nu = 0.3", "nu = 0.5")),
+    ("material.thickness", SMALL.replace("thickness = 1.0", "thickness = 0")),
+    ("goal.material", SMALL.replace("material = 0.5", "material = 1.2")),
+    ("material.thicknes", SMALL.replace("thickness = 1.0", "thicknes = 1.0")),
+    ("domain.outline", SMALL.replace("[[0, 0], [40, 0], [40, 20], [0, 20]]", "[[0, 0], [40, 20], [40, 0], [0, 20]]")),
+    ("load[1]", SMALL.replace("point = [40, 10]", "point = [90, 10]")),
+    ("support", SMALL.replace('fix = "xy"', 'fix = "x"')),
+    ("domain.cell", SMALL.replace("cell = 2.0", "cell = 8.0")),
+    ("material.E", SMALL.replace("E = 1000.0", "E = nan")),
+    ("method.iterations", SMALL.replace("iterations = 30", "iterations = 2.5")),
+]
+
+
+@pytest.mark.parametrize("key,text", BAD, ids=[b[0] + str(i) for i, b in enumerate(BAD)])
+def test_bad_input_exit_2_names_key_and_writes_nothing(tmp_path, capsys, key, text):
+    prob = _write(tmp_path, text)
+    out_dir = tmp_path / "out"
+    assert main(["run", str(prob), "-o", str(out_dir)]) == 2
+    err = capsys.readouterr().err
+    lines = [ln for ln in err.splitlines() if ln.strip()]
+    assert lines and all(ln.startswith("error: ") for ln in lines)
+    assert any(key in ln for ln in lines)
+    assert "Traceback" not in err
+    assert not out_dir.exists()
+    assert main(["check", str(prob)]) == 2
+
+
+def test_several_problems_reported_together(tmp_path, capsys):
+    text = SMALL.replace("E = 1000.0", "E = -1.0").replace("nu = 0.3", "nu = 0.7").replace("material = 0.5", "material = 0")
+    assert main(["check", str(_write(tmp_path, text))]) == 2
+    err = capsys.readouterr().err
+    for key in ("material.E", "material.nu", "goal.material"):
+        assert key in err
+
+
+def test_unknown_method_and_missing_file(tmp_path, capsys):
+    prob = _write(tmp_path, SMALL)
+    assert main(["run", str(prob), "--method", "nonsense", "-o", str(tmp_path / "o")]) == 2
+    assert "--method" in capsys.readouterr().err
+    assert main(["check", str(tmp_path / "missing.toml")]) == 2
+    assert "missing.toml" in capsys.readouterr().err
+
+
+def test_console_script_help_and_version():
+    # The installed entry point (pyproject [project.scripts]) and the module form agree.
+    res = subprocess.run([sys.executable, "-m", "levelform.cli", "--help"], capture_output=True, text=True)
+    assert res.returncode == 0
+    for word in ("demo", "run", "check", "licensed engineer"):
+        assert word in res.stdout
+    res = subprocess.run([sys.executable, "-m", "levelform.cli", "--version"], capture_output=True, text=True)
+    assert res.returncode == 0 and "levelform" in res.stdout
