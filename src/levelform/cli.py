@@ -48,7 +48,7 @@ def _errors(problems) -> int:
 def _progress_line(rec) -> None:
     print(
         f"iter {rec.iteration:4d}  compliance {rec.compliance:12.6g}  material {rec.material_fraction:6.4f}"
-        f" (target {rec.target_fraction:6.4f})  step {rec.step:8.4g}",
+        f" (target {rec.target_fraction:6.4f})  changed {rec.boundary_change:7.4f}  step {rec.step:8.4g}",
         flush=True,
     )
 

@@ -155,6 +155,36 @@ def _segment_weights(seg, xy: np.ndarray, idx: np.ndarray) -> np.ndarray:
     return w
 
 
+def _pad_load_weights(centre, radius, domain, grid, active, cell_nodes, node_number):
+    """Consistent nodal weights (summing to 1) of a load spread uniformly over the disk
+    ``radius`` around ``centre`` clipped to the domain: the integral of each node's bilinear
+    shape function over the pad, by an 8 x 8 sub-cell quadrature. Returns (node idx, w)."""
+    h, m = grid.h, 8
+    cx, cy = centre
+    xc = grid.x0 + h * (np.arange(grid.nx) + 0.5)
+    yc = grid.y0 + h * (np.arange(grid.ny) + 0.5)
+    near = active & (np.hypot(xc[None, :] - cx, yc[:, None] - cy) <= radius + h)
+    jj, ii = np.nonzero(near)
+    if jj.size == 0:
+        return None
+    s = (np.arange(m) + 0.5) / m
+    sx, sy = np.meshgrid(s, s)
+    sx, sy = sx.ravel(), sy.ravel()
+    px = grid.x0 + h * (ii[:, None] + sx[None, :])
+    py = grid.y0 + h * (jj[:, None] + sy[None, :])
+    inside = (np.hypot(px - cx, py - cy) <= radius) & shapely.contains_xy(domain, px, py)
+    if not inside.any():
+        return None
+    shape = np.stack([(1 - sx) * (1 - sy), sx * (1 - sy), sx * sy, (1 - sx) * sy], axis=1)  # (m*m, 4)
+    w_cell = inside.astype(float) @ shape  # (n_near, 4)
+    flat = jj * grid.nx + ii
+    pos = np.searchsorted(np.flatnonzero(active.ravel()), flat)
+    nodes = node_number[cell_nodes[pos]]  # active-node numbers of each cell's corners
+    idx, inv = np.unique(nodes.ravel(), return_inverse=True)
+    w = np.bincount(inv, weights=w_cell.ravel())
+    return idx, w / w.sum()
+
+
 def _uses_pad(item, settings: Settings) -> bool:
     return settings.pads if item.pad is None else bool(item.pad)
 
@@ -222,10 +252,14 @@ def build_model(problem: Problem) -> Model:
         padded = _uses_pad(ld, settings)
         if ld.kind == "point":
             g = Point(ld.where)
-            idx = _nodes_near(g, xy, settings.pad_radius if padded else 0.0)
-            if not padded:
-                idx = idx[:1]
-            w = np.full(idx.size, 1.0 / idx.size)  # a uniform load over the pad
+            spread = (
+                _pad_load_weights(ld.where, settings.pad_radius, domain, grid, active, cell_nodes, node_number)
+                if padded else None
+            )
+            if spread is None:  # an exact nodal force at the nearest node
+                idx, w = _nodes_near(g, xy, 0.0)[:1], np.ones(1)
+            else:
+                idx, w = spread
         else:
             g = LineString(ld.where)
             idx = _nodes_near(g, xy, tol)

@@ -93,6 +93,7 @@ def run(problem: Problem, progress=None) -> Result:
     status = "iteration limit reached"
     state = None
     prev_target = None
+    prev_frac = None
 
     for it in range(1, st.iterations + 1):
         scale = st.ersatz + (1.0 - st.ersatz) * frac
@@ -101,7 +102,8 @@ def run(problem: Problem, progress=None) -> Result:
         vol = float(frac.mean())
         if compliances and prev_target is not None and abs(prev_target - goal) < 1e-12 and abs(target - goal) < 1e-12:
             step = max(step * SHRINK, FLOOR * st.step) if c > compliances[-1] else min(step * GROW, st.step)
-        change = 0.0 if not history else history[-1].boundary_change
+        # Area fraction of the domain that changed between the previous design and this one.
+        change = 0.0 if prev_frac is None else float(np.abs(frac - prev_frac).mean())
         compliances.append(c)
         rec = IterationRecord(
             iteration=it, compliance=c, material_fraction=vol, target_fraction=target,
@@ -156,12 +158,8 @@ def run(problem: Problem, progress=None) -> Result:
         phi = ls.advect(phi, speed, step)
         phi = ls.clamp(phi, model.solid_sdf, model.empty_sdf)
         phi = ls.reinitialize(phi)
-        new_frac = ls.fractions(phi)
-        history[-1] = IterationRecord(
-            iteration=rec.iteration, compliance=rec.compliance, material_fraction=rec.material_fraction,
-            target_fraction=rec.target_fraction, boundary_change=float(np.abs(new_frac - frac).mean()), step=rec.step,
-        )
-        frac = new_frac
+        prev_frac = frac
+        frac = ls.fractions(phi)
 
     phi_out = np.where(a, phi, np.nan)
     domain = domain_polygon(problem)

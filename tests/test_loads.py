@@ -1,0 +1,59 @@
+"""Loads and supports on the grid: consistent line loads, and point forces spread over a pad so
+that figures converge under refinement."""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from levelform.analysis import PlateSystem
+from levelform.grid import build_model
+from levelform.spec import Domain, Goal, Load, LoadCase, Material, Method, Problem, Support, Units
+
+
+def _plate(cell, pads, load=None):
+    return Problem(
+        units=Units(), material=Material(E=1000.0, nu=0.3, thickness=1.0),
+        domain=Domain(outline=((0, 0), (40, 0), (40, 20), (0, 20)), holes=(), cell=cell),
+        supports=(Support("segment", ((0, 0), (0, 20)), "xy", pad=False),),
+        loads=(load or Load("point", (40.0, 10.0), (0.0, -1.0)),),
+        cases=(LoadCase("main"),), regions=(), goal=Goal(0.5),
+        method=Method(pads=pads, pad_radius=2.0),
+    )
+
+
+def _solid_compliance(problem):
+    model = build_model(problem)
+    system = PlateSystem(model, problem.material.E, problem.material.nu, problem.material.thickness)
+    return system.analyse(np.ones(model.n_cells)).compliance
+
+
+def test_point_force_on_a_pad_converges_under_refinement():
+    # A concentrated force in 2D elasticity has a logarithmically infinite displacement under
+    # it (Flamant's solution, Timoshenko and Goodier, Theory of Elasticity, sec. 36; from
+    # memory), so the compliance of an exact nodal force grows by about the same amount at
+    # every halving of the cell. Spread over a pad of fixed radius, it converges.
+    exact = [_solid_compliance(_plate(h, pads=False)) for h in (1.0, 0.5, 0.25)]
+    padded = [_solid_compliance(_plate(h, pads=True)) for h in (1.0, 0.5, 0.25)]
+    d1, d2 = exact[1] - exact[0], exact[2] - exact[1]
+    assert d1 > 0.005 * exact[0] and d2 > 0.005 * exact[0]
+    assert d2 == pytest.approx(d1, rel=0.25)  # log(1/h) growth: equal steps per halving
+    # Close to second order (ratio 1/4 per halving); allow 0.4.
+    assert abs(padded[2] - padded[1]) < 0.4 * abs(padded[1] - padded[0])
+    assert abs(padded[2] - padded[1]) < 0.002 * padded[2]
+
+
+def test_line_load_total_and_consistent_nodal_values():
+    # Consistent nodal loads of a uniform traction on linear edges: q h / 2 at the two end
+    # nodes, q h inside (any finite-element text, e.g. Cook et al., Concepts and Applications
+    # of Finite Element Analysis, 4th ed., sec. 3.10; from memory).
+    q = -0.5
+    p = _plate(1.0, pads=False, load=Load("segment", ((10.0, 20.0), (30.0, 20.0)), (0.0, q)))
+    model = build_model(p)
+    fy = np.zeros(model.n_dof)
+    fy[model.free >= 0] = model.forces[:, 0]
+    fy = fy[1::2]
+    nz = fy[np.abs(fy) > 0]
+    assert fy.sum() == pytest.approx(q * 20.0, rel=1e-12)
+    assert nz.size == 21
+    assert np.count_nonzero(np.isclose(nz, q * 0.5)) == 2
+    assert np.count_nonzero(np.isclose(nz, q * 1.0)) == 19
