@@ -121,6 +121,13 @@ class Method:
     volume_step: float = 0.02
     ersatz: float = 1e-3
     solver: str = "auto"
+    # density-based (SIMP) and evolutionary (BESO) settings; lengths in model units
+    penalty: float = 3.0
+    filter_radius: Optional[float] = None
+    filter: str = "density"
+    projection: bool = False
+    evolution_rate: float = 0.02
+    admission_cap: float = 0.02
 
 
 @dataclass(frozen=True)
@@ -182,3 +189,6 @@ class Result:
     phi: object = None  # nodal level set (ny+1, nx+1), NaN outside the domain
     density: object = None  # cell material fraction (ny, nx), NaN outside the domain
     case_compliance: dict = field(default_factory=dict)
+    # For methods whose own design is not crisp (density, evolutionary): the compliance of the
+    # crisp outline re-analysed on the method's grid. None when the design is crisp already.
+    crisp_compliance: Optional[float] = None
