@@ -114,3 +114,22 @@ def test_keep_regions_are_respected():
     # Weighted compliance is the weighted sum of the case compliances.
     weights = {c.name: c.weight for c in p.cases}
     assert r.compliance == pytest.approx(sum(weights[k] * v for k, v in r.case_compliance.items()), rel=1e-12)
+
+
+def test_min_member_and_min_hole_are_honoured():
+    from levelform.spec import Fabrication
+
+    base = _problem("cantilever.toml", cell=1.0)
+    free = optimize(base)
+    # Without a limit the thinnest member of this design is about 2.6 long.
+    assert free.fabrication["smallest_member_width"] < 4.0
+    limited = optimize(dc.replace(base, fabrication=Fabrication(min_member=4.0, min_hole=8.0)))
+    lim = limited.fabrication["limits"]
+    assert lim["min_member"]["met"] and lim["min_member"]["measured"] >= 4.0
+    assert lim["min_hole"]["met"]
+    holes = limited.fabrication["smallest_hole"]
+    assert holes is None or holes >= 8.0
+    assert abs(limited.material_fraction - 0.5) <= 0.005 * 0.5
+    # The outline stays smooth: no cell-scale zig-zag (common practice, no source: turning
+    # angles of a smooth boundary sampled at cell scale stay well below a right angle).
+    assert limited.fabrication["max_turning_angle_deg"] < 60.0

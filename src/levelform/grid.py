@@ -93,6 +93,8 @@ class Model:
     solid_sdf: np.ndarray  # (ny+1, nx+1), < 0 inside keep-solid regions and pads; +inf if none
     empty_sdf: np.ndarray  # (ny+1, nx+1), < 0 inside keep-empty regions; +inf if none
     settings: Settings
+    support_nodes: tuple = ()  # per support: flat node indices it fixes
+    load_nodes: tuple = ()  # per load: flat node indices it acts on
 
     @property
     def n_cells(self) -> int:
@@ -103,6 +105,25 @@ class Model:
         x = g.x0 + g.h * np.arange(g.nx + 1)
         y = g.y0 + g.h * np.arange(g.ny + 1)
         return np.meshgrid(x, y)
+
+
+def load_path_intact(model: Model, phi: np.ndarray) -> bool:
+    """Every load reaches some support through material: material nodes (phi < 0) joined
+    through grid edges, a load or support counting as touched when material lies within one
+    node of any of its nodes."""
+    from scipy import ndimage as ndi
+
+    mat = (phi < 0.0) & model.node_active
+    labels, _ = ndi.label(mat)
+    grown = ndi.grey_dilation(labels, size=(3, 3))  # labels seen within one node
+    flat = grown.ravel()
+    support_labels = set()
+    for nodes in model.support_nodes:
+        support_labels.update(int(v) for v in flat[nodes] if v > 0)
+    for nodes in model.load_nodes:
+        if not any(int(v) in support_labels for v in flat[nodes] if v > 0):
+            return False
+    return True
 
 
 def make_grid(problem: Problem) -> GridInfo:
@@ -227,6 +248,7 @@ def build_model(problem: Problem) -> Model:
     # Supports -> fixed dofs.
     fixed = np.zeros(n_dof, bool)
     pads = []
+    support_nodes, load_nodes = [], []
     for s in problem.supports:
         g = _support_geometry(s)
         padded = _uses_pad(s, settings)
@@ -236,6 +258,7 @@ def build_model(problem: Problem) -> Model:
             idx = _nodes_near(g, xy, 1e-9 * h)
         else:
             idx = _nodes_near(g, xy, tol)
+        support_nodes.append(act_flat[idx])
         if "x" in s.fix:
             fixed[2 * idx] = True
         if "y" in s.fix:
@@ -264,6 +287,7 @@ def build_model(problem: Problem) -> Model:
             g = LineString(ld.where)
             idx = _nodes_near(g, xy, tol)
             w = _segment_weights(ld.where, xy, idx)
+        load_nodes.append(act_flat[idx])
         np.add.at(F[:, c], 2 * idx, ld.force[0] * w)
         np.add.at(F[:, c], 2 * idx + 1, ld.force[1] * w)
         if padded:
@@ -302,6 +326,8 @@ def build_model(problem: Problem) -> Model:
         solid_sdf=solid_sdf,
         empty_sdf=empty_sdf,
         settings=settings,
+        support_nodes=tuple(support_nodes),
+        load_nodes=tuple(load_nodes),
     )
 
 

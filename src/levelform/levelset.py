@@ -182,6 +182,17 @@ class LevelSetGrid:
         out[self.node_active] = v
         return out
 
+    def open(self, phi: np.ndarray, r: float) -> np.ndarray:
+        """Morphological opening of the material by a disc of radius r: erode, then dilate
+        (shifts of a signed distance, each followed by reinitialization). Removes members
+        thinner than 2 r and rounds convex corners to radius r."""
+        return self.reinitialize(self.reinitialize(phi + r) - r)
+
+    def close(self, phi: np.ndarray, r: float) -> np.ndarray:
+        """Morphological closing of the material by a disc of radius r: fills holes and
+        gaps narrower than 2 r and rounds inside corners to radius r."""
+        return self.reinitialize(self.reinitialize(phi - r) + r)
+
     def clamp(self, phi: np.ndarray, solid_sdf: np.ndarray, empty_sdf: np.ndarray) -> np.ndarray:
         """Union with the keep-solid regions, minus the keep-empty regions (on distances)."""
         return np.maximum(np.minimum(phi, solid_sdf), -empty_sdf)

@@ -131,6 +131,14 @@ class Method:
 
 
 @dataclass(frozen=True)
+class Fabrication:
+    """Manufacturing limits, lengths in model units; None means no limit."""
+
+    min_member: Optional[float] = None
+    min_hole: Optional[float] = None
+
+
+@dataclass(frozen=True)
 class Problem:
     units: Units
     material: Material
@@ -141,6 +149,7 @@ class Problem:
     regions: tuple[Region, ...]
     goal: Goal
     method: Method
+    fabrication: Fabrication = field(default_factory=Fabrication)
     name: str = "problem"
     source: Optional[str] = None
     raw: dict = field(default_factory=dict, compare=False, repr=False)
@@ -192,3 +201,5 @@ class Result:
     # For methods whose own design is not crisp (density, evolutionary): the compliance of the
     # crisp outline re-analysed on the method's grid. None when the design is crisp already.
     crisp_compliance: Optional[float] = None
+    # Fabrication limits asked for and what the outline achieves (see geometry.fabrication_report).
+    fabrication: dict = field(default_factory=dict)

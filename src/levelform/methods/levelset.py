@@ -17,14 +17,16 @@ import numpy as np
 from scipy.optimize import brentq
 
 from ..analysis import PlateSystem
-from ..geometry import domain_polygon, outline_from_levelset
-from ..grid import build_model
+from ..geometry import domain_polygon, fabrication_report, outline_from_levelset
+from ..grid import build_model, load_path_intact
 from ..levelset import LevelSetGrid, perforated_start
 from ..spec import IterationRecord, Problem, Result
 
 SHRINK, GROW, FLOOR = 0.6, 1.1, 0.1  # step control: on a compliance rise, otherwise, least step
 CONVERGE_TOL, CONVERGE_WINDOW = 1e-3, 5
 VOLUME_TOL = 0.005  # relative to the goal
+MORPH_AFTER = 12  # fabrication filter from this many iterations after the volume reached the goal
+# (after the last hole seeding, which ends 10 iterations after it)
 SEED_EVERY, SEED_AREA = 5, 0.02  # hole seeding period (iterations), area opened per event
 
 
@@ -67,6 +69,20 @@ def _seed_holes(phi, ls, model, g_nodes, lam, radius, spacing, X, Y):
     return out, len(chosen)
 
 
+def _fabrication_filter(phi, ls, model, fab):
+    """Honour the fabrication limits on the level set: a closing by min_hole / 2 fills
+    smaller holes, then an opening by min_member / 2 removes thinner members; keep regions
+    win. An opening that would cut every load path is skipped this time (the boundary
+    update thickens the member next)."""
+    if fab.min_hole:
+        phi = ls.reinitialize(ls.clamp(ls.close(phi, 0.5 * fab.min_hole), model.solid_sdf, model.empty_sdf))
+    if fab.min_member:
+        opened = ls.reinitialize(ls.clamp(ls.open(phi, 0.5 * fab.min_member), model.solid_sdf, model.empty_sdf))
+        if load_path_intact(model, opened):
+            phi = opened
+    return phi
+
+
 def run(problem: Problem, progress=None) -> Result:
     t_start = time.perf_counter()
     model = build_model(problem)
@@ -94,6 +110,9 @@ def run(problem: Problem, progress=None) -> Result:
     state = None
     prev_target = None
     prev_frac = None
+    fab = problem.fabrication
+    morph = bool(fab.min_member or fab.min_hole)
+    lost = 0.0  # material the last fabrication filter removed, made up by the next update
 
     for it in range(1, st.iterations + 1):
         scale = st.ersatz + (1.0 - st.ersatz) * frac
@@ -118,6 +137,7 @@ def run(problem: Problem, progress=None) -> Result:
             and abs(target - goal) < 1e-12
             and abs(vol - goal) <= VOLUME_TOL * goal
             and it - last_seed > CONVERGE_WINDOW
+            and (not morph or (goal_reached_at is not None and it > goal_reached_at + MORPH_AFTER + CONVERGE_WINDOW))
             and max(abs(c - x) for x in compliances[-CONVERGE_WINDOW - 1 : -1]) < CONVERGE_TOL * c
         ):
             converged = True
@@ -140,7 +160,7 @@ def run(problem: Problem, progress=None) -> Result:
         vals = ws[band] if band.any() else ws[a]
         vscale = float(np.percentile(vals, 95)) or float(ws[a].max()) or 1.0
 
-        lam = _multiplier(phi, ws, vscale, step, target, ls, model)
+        lam = _multiplier(phi, ws, vscale, step, target + lost, ls, model)
         seeding_open = goal_reached_at is None or it <= min(goal_reached_at + 10, st.iterations // 2)
         if st.seed_holes and seeding_open and it - last_seed >= SEED_EVERY and it >= SEED_EVERY:
             g_nodes = ls.smooth_cells(system.hole_sensitivity(state))
@@ -152,12 +172,16 @@ def run(problem: Problem, progress=None) -> Result:
             if n_new:
                 phi = ls.reinitialize(ls.clamp(phi_s, model.solid_sdf, model.empty_sdf))
                 last_seed = it
-                lam = _multiplier(phi, ws, vscale, step, target, ls, model)
+                lam = _multiplier(phi, ws, vscale, step, target + lost, ls, model)
 
         speed = np.clip((ws - lam) / vscale, -1.0, 1.0)
         phi = ls.advect(phi, speed, step)
         phi = ls.clamp(phi, model.solid_sdf, model.empty_sdf)
         phi = ls.reinitialize(phi)
+        if morph and goal_reached_at is not None and it >= goal_reached_at + MORPH_AFTER:
+            before = float(ls.fractions(phi).mean())
+            phi = _fabrication_filter(phi, ls, model, fab)
+            lost = before - float(ls.fractions(phi).mean())
         prev_frac = frac
         frac = ls.fractions(phi)
 
@@ -183,6 +207,7 @@ def run(problem: Problem, progress=None) -> Result:
         phi=phi_out,
         density=dens.reshape(g.ny, g.nx),
         case_compliance={n: float(v) for n, v in zip(model.case_names, state.case_compliance)},
+        fabrication=fabrication_report(outline, domain, fab),
     )
 
 
