@@ -162,11 +162,12 @@ def outline_from_levelset(phi, grid: GridInfo, domain: Polygon, min_hole_area=No
     if not raw:
         return MultiPolygon()
     material = shapely.union_all(raw)
-    clipped = shapely.make_valid(shapely.intersection(material, domain))
     # Drop the near-collinear vertices marching squares leaves (two crossings a hair apart
     # next to a node): a tolerance of SIMPLIFY * h moves no edge by more than that and
-    # changes areas by far less than 0.5 %.
-    clipped = shapely.make_valid(shapely.simplify(clipped, SIMPLIFY * h, preserve_topology=True))
+    # changes areas by far less than 0.5 %. Done before clipping so the domain's own edges
+    # (and its holes) stay exact.
+    material = shapely.make_valid(shapely.simplify(material, SIMPLIFY * h, preserve_topology=True))
+    clipped = shapely.make_valid(shapely.intersection(material, domain))
     pieces = [p for p in _polygons(clipped) if p.area >= min_area]
     # Sort so the output does not depend on contour traversal order.
     pieces.sort(key=lambda p: (p.bounds[0], p.bounds[1], -p.area))
