@@ -628,6 +628,8 @@ def summary(result: Result) -> dict:
         "holes": metrics["holes"],
         "pieces": metrics["pieces"],
         "smallest_member_width": metrics["smallest_member_width"],
+        "crisp_compliance": result.compliance if result.crisp_compliance is None else result.crisp_compliance,
+        "fabrication": dict(result.fabrication or {}),
         "domain_area": domain.area,
         "units": {"length": units.length, "force": units.force,
                   "stress": units.stress, "compliance": units.compliance},
