@@ -10,7 +10,7 @@ from pathlib import Path
 from . import __version__
 from .spec import CAUTION, ProblemError
 
-EXIT_OK, EXIT_FAIL, EXIT_BAD_INPUT = 0, 1, 2
+EXIT_OK, EXIT_FAIL, EXIT_BAD_INPUT, EXIT_INTERRUPTED = 0, 1, 2, 130
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -32,6 +32,7 @@ def _parser() -> argparse.ArgumentParser:
     r.add_argument("-o", "--out", metavar="OUTDIR", help="output folder (default: <problem name>-results next to the file)")
     r.add_argument("--method", help="override [method] name (levelset)")
     r.add_argument("--overwrite", action="store_true", help="replace the results in an existing output folder")
+    r.add_argument("--resume", action="store_true", help="continue an interrupted run from its last checkpoint in OUTDIR")
     r.add_argument("-q", "--quiet", action="store_true", help="no per-iteration progress lines")
 
     c = sub.add_parser("check", help="validate a problem file and estimate its size, without solving")
@@ -65,21 +66,35 @@ def _with_method(problem, name):
     return dataclasses.replace(problem, method=dataclasses.replace(problem.method, name=name))
 
 
-def _solve_and_export(problem, outdir: Path, quiet: bool, overwrite: bool) -> int:
+def _solve_and_export(problem, outdir: Path, quiet: bool, overwrite: bool, resume: bool = False) -> int:
+    from .checkpoint import CheckpointFile
+    from .grid import resolution_warnings, resolve_settings
     from .methods import optimize
     from .outputs import export
 
     if outdir.exists() and not outdir.is_dir():
         return _errors([f"-o: {outdir} exists and is not a folder"])
-    if outdir.is_dir() and any(outdir.iterdir()) and not overwrite:
-        return _errors([f"-o: output folder {outdir} is not empty; pass --overwrite to replace its results or choose another folder"])
-    from .grid import resolution_warnings, resolve_settings
+    checkpoint = CheckpointFile(outdir, problem)
+    if resume:
+        if not checkpoint.exists():
+            return _errors([f"--resume: {outdir} holds no checkpoint to resume; run without --resume"])
+        checkpoint.load()  # refuses a checkpoint of another problem before any work
+    elif outdir.is_dir() and any(outdir.iterdir()):
+        if not overwrite:
+            hint = " (an unfinished run: pass --resume to continue it)" if checkpoint.exists() else ""
+            return _errors([f"-o: output folder {outdir} is not empty{hint}; pass --overwrite to replace "
+                            "its results or choose another folder"])
+        checkpoint.remove()
 
-    print(f"levelform {__version__}: {problem.name} ({problem.method.name})", flush=True)
+    print(f"levelform {__version__}: {problem.name} ({problem.method.name})"
+          + (" resuming from the last checkpoint" if resume else ""), flush=True)
     for msg in resolution_warnings(resolve_settings(problem), problem.domain.cell):
         print(f"warning: {msg}", file=sys.stderr)
-    result = optimize(problem, progress=None if quiet else _progress_line)
+    result = optimize(problem, progress=None if quiet else _progress_line, checkpoint=checkpoint)
     files = export(result, outdir)
+    interrupted = result.status == "interrupted"
+    if not interrupted:
+        checkpoint.remove()
     u = problem.units
     print(
         f"\n{result.status} after {result.iterations} iterations in {result.seconds:.1f} s\n"
@@ -90,6 +105,12 @@ def _solve_and_export(problem, outdir: Path, quiet: bool, overwrite: bool) -> in
         f"  results in         {outdir}{os.sep} ({', '.join(sorted(files))})\n\nCaution: {CAUTION}",
         flush=True,
     )
+    if interrupted:
+        print(f"interrupted: the current design is written; continue with --resume", file=sys.stderr)
+        return EXIT_INTERRUPTED
+    if not result.converged:
+        print(f"warning: the run did not converge ({result.status}); check the history before using the outline",
+              file=sys.stderr)
     return EXIT_OK
 
 
@@ -98,7 +119,7 @@ def cmd_run(args) -> int:
 
     problem = _with_method(load_problem(args.problem), args.method)
     out = Path(args.out) if args.out else Path(args.problem).with_name(f"{Path(args.problem).stem}-results")
-    return _solve_and_export(problem, out, args.quiet, args.overwrite)
+    return _solve_and_export(problem, out, args.quiet, args.overwrite, args.resume)
 
 
 def cmd_check(args) -> int:
@@ -152,8 +173,8 @@ def main(argv=None) -> int:
     except ProblemError as exc:
         return _errors(exc.problems)
     except KeyboardInterrupt:
-        print("interrupted", file=sys.stderr)
-        return 130
+        print("interrupted before any design was analysed; nothing written", file=sys.stderr)
+        return EXIT_INTERRUPTED
     except Exception as exc:  # an internal failure: short message, traceback only on request
         if os.environ.get("LEVELFORM_DEBUG"):
             raise

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import math
 import time
+from dataclasses import dataclass, fields
 
 import numpy as np
 from scipy.optimize import brentq
@@ -25,6 +26,8 @@ from ..spec import IterationRecord, Problem, Result
 SHRINK, GROW, FLOOR = 0.6, 1.1, 0.1  # step control: on a compliance rise, otherwise, least step
 CONVERGE_TOL, CONVERGE_WINDOW = 1e-3, 5
 VOLUME_TOL = 0.005  # relative to the goal
+CHECKPOINT_EVERY = 5  # iterations between checkpoints
+DIVERGE_RISES = 15  # consecutive compliance rises at the goal volume that stop a run
 MORPH_AFTER = 12  # fabrication filter from this many iterations after the volume reached the goal
 # (after the last hole seeding, which ends 10 iterations after it)
 SEED_EVERY, SEED_AREA = 5, 0.02  # hole seeding period (iterations), area opened per event
@@ -83,7 +86,53 @@ def _fabrication_filter(phi, ls, model, fab):
     return phi
 
 
-def run(problem: Problem, progress=None) -> Result:
+@dataclass
+class _Loop:
+    """Everything that carries from one iteration to the next; saved in checkpoints so a
+    resumed run continues bit for bit."""
+
+    it: int  # the next iteration to analyse
+    phi: np.ndarray
+    target: float
+    step: float
+    prev_target: float  # NaN before the first update
+    prev_frac: np.ndarray  # empty before the first update
+    history: list
+    last_seed: int
+    goal_reached_at: int  # -1 until the target reaches the goal
+    lost: float
+    rises: int  # consecutive compliance rises at the goal volume
+
+    def to_arrays(self) -> dict:
+        hist = np.array([[getattr(r, f.name) for f in fields(IterationRecord)] for r in self.history], float)
+        return {
+            "it": np.int64(self.it), "phi": self.phi, "target": np.float64(self.target),
+            "step": np.float64(self.step), "prev_target": np.float64(self.prev_target),
+            "prev_frac": self.prev_frac, "history": hist.reshape(-1, len(fields(IterationRecord))),
+            "last_seed": np.int64(self.last_seed), "goal_reached_at": np.int64(self.goal_reached_at),
+            "lost": np.float64(self.lost), "rises": np.int64(self.rises),
+        }
+
+    @classmethod
+    def from_arrays(cls, d) -> "_Loop":
+        names = [f.name for f in fields(IterationRecord)]
+        history = [
+            IterationRecord(**{k: (int(v) if k == "iteration" else float(v)) for k, v in zip(names, row)})
+            for row in np.asarray(d["history"])
+        ]
+        return cls(
+            it=int(d["it"]), phi=np.array(d["phi"], float), target=float(d["target"]), step=float(d["step"]),
+            prev_target=float(d["prev_target"]), prev_frac=np.array(d["prev_frac"], float), history=history,
+            last_seed=int(d["last_seed"]), goal_reached_at=int(d["goal_reached_at"]), lost=float(d["lost"]),
+            rises=int(d["rises"]),
+        )
+
+
+def run(problem: Problem, progress=None, checkpoint=None) -> Result:
+    """Optimize ``problem``. ``progress(record)`` is called after every analysis;
+    ``checkpoint`` (optional) has ``load() -> dict | None`` and ``save(dict)`` and is used to
+    resume and to save the loop state every CHECKPOINT_EVERY iterations. Ctrl-C returns the
+    last analysed design with status "interrupted"."""
     t_start = time.perf_counter()
     model = build_model(problem)
     st = model.settings
@@ -95,96 +144,79 @@ def run(problem: Problem, progress=None) -> Result:
     X, Y = model.node_xy()
     goal = problem.goal.material
     a = model.node_active
-
-    phi = _initial_phi(model, ls, X, Y, st)
-    frac = ls.fractions(phi)
-    target = float(frac.mean())
-    step = st.step
-    hole_radius = max(0.6 * st.smoothing, 1.5 * h)
-    history: list[IterationRecord] = []
-    compliances: list[float] = []
-    last_seed = -10**9
-    goal_reached_at = None
-    converged = False
-    status = "iteration limit reached"
-    state = None
-    prev_target = None
-    prev_frac = None
     fab = problem.fabrication
     morph = bool(fab.min_member or fab.min_hole)
-    lost = 0.0  # material the last fabrication filter removed, made up by the next update
+    hole_radius = max(0.6 * st.smoothing, 1.5 * h)
 
-    for it in range(1, st.iterations + 1):
-        scale = st.ersatz + (1.0 - st.ersatz) * frac
-        state = system.analyse(scale)
-        c = state.compliance
-        vol = float(frac.mean())
-        if compliances and prev_target is not None and abs(prev_target - goal) < 1e-12 and abs(target - goal) < 1e-12:
-            step = max(step * SHRINK, FLOOR * st.step) if c > compliances[-1] else min(step * GROW, st.step)
-        # Area fraction of the domain that changed between the previous design and this one.
-        change = 0.0 if prev_frac is None else float(np.abs(frac - prev_frac).mean())
-        compliances.append(c)
-        rec = IterationRecord(
-            iteration=it, compliance=c, material_fraction=vol, target_fraction=target,
-            boundary_change=change, step=step,
-        )
-        history.append(rec)
-        if progress is not None:
-            progress(rec)
+    saved = checkpoint.load() if checkpoint is not None else None
+    if saved is not None:
+        S = _Loop.from_arrays(saved)
+    else:
+        phi0 = _initial_phi(model, ls, X, Y, st)
+        S = _Loop(it=1, phi=phi0, target=float(ls.fractions(phi0).mean()), step=st.step, prev_target=math.nan,
+                  prev_frac=np.zeros(0), history=[], last_seed=-10**9, goal_reached_at=-1, lost=0.0, rises=0)
+    status = "iteration limit reached"
+    converged = False
+    best = None  # (phi, frac, state) of the last analysed design with an intact load path
 
-        if (
-            it > CONVERGE_WINDOW
-            and abs(target - goal) < 1e-12
-            and abs(vol - goal) <= VOLUME_TOL * goal
-            and it - last_seed > CONVERGE_WINDOW
-            and (not morph or (goal_reached_at is not None and it > goal_reached_at + MORPH_AFTER + CONVERGE_WINDOW))
-            and max(abs(c - x) for x in compliances[-CONVERGE_WINDOW - 1 : -1]) < CONVERGE_TOL * c
-        ):
-            converged = True
-            status = "converged"
-            break
-        if it == st.iterations:
-            break
+    try:
+        while S.it <= st.iterations:
+            it = S.it
+            if checkpoint is not None and (it - 1) % CHECKPOINT_EVERY == 0 and it > 1:
+                checkpoint.save(S.to_arrays())
+            frac = ls.fractions(S.phi)
+            scale = st.ersatz + (1.0 - st.ersatz) * frac
+            try:
+                state = system.analyse(scale)
+            except FloatingPointError as exc:
+                status = f"numerical failure: {exc}"
+                break
+            if not load_path_intact(model, S.phi):
+                status = "load path lost: no material connects a load to a support"
+                if best is None:
+                    best = (S.phi.copy(), frac, state)
+                break
+            best = (S.phi.copy(), frac, state)
+            c = state.compliance
+            vol = float(frac.mean())
+            at_goal = abs(S.prev_target - goal) < 1e-12 and abs(S.target - goal) < 1e-12
+            previous = S.history[-1].compliance if S.history else None
+            if previous is not None and at_goal:
+                rose = c > previous
+                S.step = max(S.step * SHRINK, FLOOR * st.step) if rose else min(S.step * GROW, st.step)
+                S.rises = S.rises + 1 if rose else 0
+            change = 0.0 if S.prev_frac.size == 0 else float(np.abs(frac - S.prev_frac).mean())
+            rec = IterationRecord(iteration=it, compliance=c, material_fraction=vol, target_fraction=S.target,
+                                  boundary_change=change, step=S.step)
+            S.history.append(rec)
+            if progress is not None:
+                progress(rec)
+            recent = [r.compliance for r in S.history[-CONVERGE_WINDOW - 1 : -1]]
+            if (
+                it > CONVERGE_WINDOW
+                and abs(S.target - goal) < 1e-12
+                and abs(vol - goal) <= VOLUME_TOL * goal
+                and it - S.last_seed > CONVERGE_WINDOW
+                and (not morph or (S.goal_reached_at >= 0 and it > S.goal_reached_at + MORPH_AFTER + CONVERGE_WINDOW))
+                and max(abs(c - x) for x in recent) < CONVERGE_TOL * c
+            ):
+                converged, status = True, "converged"
+                break
+            if S.rises >= DIVERGE_RISES:
+                status = f"diverging: compliance rose {S.rises} iterations in a row at the goal volume"
+                break
+            if it == st.iterations:
+                break
+            _update(S, state, frac, scale, it, model, ls, system, st, goal, morph, fab, hole_radius, X, Y)
+            S.it += 1
+    except KeyboardInterrupt:
+        if best is None:
+            raise
+        status = "interrupted"
 
-        # Volume target moves toward the goal by volume_step per iteration.
-        prev_target = target
-        if target > goal:
-            target = max(goal, target - st.volume_step)
-        else:
-            target = min(goal, target + st.volume_step)
-        if goal_reached_at is None and abs(target - goal) < 1e-12:
-            goal_reached_at = it
-
-        ws = ls.smooth_cells(system.energy_density(state) * scale)
-        band = a & (np.abs(phi) <= 2.0 * h)
-        vals = ws[band] if band.any() else ws[a]
-        vscale = float(np.percentile(vals, 95)) or float(ws[a].max()) or 1.0
-
-        lam = _multiplier(phi, ws, vscale, step, target + lost, ls, model)
-        seeding_open = goal_reached_at is None or it <= min(goal_reached_at + 10, st.iterations // 2)
-        if st.seed_holes and seeding_open and it - last_seed >= SEED_EVERY and it >= SEED_EVERY:
-            g_nodes = ls.smooth_cells(system.hole_sensitivity(state))
-            # Compliance cost per unit area of removing material at the boundary: the mean
-            # solid energy density over the cut cells (to first order the volume multiplier).
-            cut = (frac > 0.0) & (frac < 1.0)
-            lam_boundary = float(system.energy_density(state)[cut].mean()) if cut.any() else lam
-            phi_s, n_new = _seed_holes(phi, ls, model, g_nodes, lam_boundary, hole_radius, st.hole_spacing, X, Y)
-            if n_new:
-                phi = ls.reinitialize(ls.clamp(phi_s, model.solid_sdf, model.empty_sdf))
-                last_seed = it
-                lam = _multiplier(phi, ws, vscale, step, target + lost, ls, model)
-
-        speed = np.clip((ws - lam) / vscale, -1.0, 1.0)
-        phi = ls.advect(phi, speed, step)
-        phi = ls.clamp(phi, model.solid_sdf, model.empty_sdf)
-        phi = ls.reinitialize(phi)
-        if morph and goal_reached_at is not None and it >= goal_reached_at + MORPH_AFTER:
-            before = float(ls.fractions(phi).mean())
-            phi = _fabrication_filter(phi, ls, model, fab)
-            lost = before - float(ls.fractions(phi).mean())
-        prev_frac = frac
-        frac = ls.fractions(phi)
-
+    if best is None:
+        raise FloatingPointError(status)
+    phi, frac, state = best
     phi_out = np.where(a, phi, np.nan)
     domain = domain_polygon(problem)
     outline = outline_from_levelset(phi_out, g, domain)
@@ -197,11 +229,11 @@ def run(problem: Problem, progress=None) -> Result:
         outline=outline,
         compliance=float(state.compliance),
         material_fraction=float(frac.mean()),
-        iterations=len(history),
+        iterations=len(S.history),
         converged=converged,
         status=status,
         seconds=time.perf_counter() - t_start,
-        history=tuple(history),
+        history=tuple(S.history),
         settings=settings,
         grid=g,
         phi=phi_out,
@@ -209,6 +241,47 @@ def run(problem: Problem, progress=None) -> Result:
         case_compliance={n: float(v) for n, v in zip(model.case_names, state.case_compliance)},
         fabrication=fabrication_report(outline, domain, fab),
     )
+
+
+def _update(S, state, frac, scale, it, model, ls, system, st, goal, morph, fab, hole_radius, X, Y):
+    """Move the design of iteration ``it`` to the next one (in place on ``S``)."""
+    a = model.node_active
+    h = ls.h
+    phi = S.phi
+    # Volume target moves toward the goal by volume_step per iteration.
+    S.prev_target = S.target
+    S.target = max(goal, S.target - st.volume_step) if S.target > goal else min(goal, S.target + st.volume_step)
+    if S.goal_reached_at < 0 and abs(S.target - goal) < 1e-12:
+        S.goal_reached_at = it
+
+    ws = ls.smooth_cells(system.energy_density(state) * scale)
+    band = a & (np.abs(phi) <= 2.0 * h)
+    vals = ws[band] if band.any() else ws[a]
+    vscale = float(np.percentile(vals, 95)) or float(ws[a].max()) or 1.0
+
+    lam = _multiplier(phi, ws, vscale, S.step, S.target + S.lost, ls, model)
+    seeding_open = S.goal_reached_at < 0 or it <= min(S.goal_reached_at + 10, st.iterations // 2)
+    if st.seed_holes and seeding_open and it - S.last_seed >= SEED_EVERY and it >= SEED_EVERY:
+        g_nodes = ls.smooth_cells(system.hole_sensitivity(state))
+        # Compliance cost per unit area of removing material at the boundary: the mean
+        # solid energy density over the cut cells (to first order the volume multiplier).
+        cut = (frac > 0.0) & (frac < 1.0)
+        lam_boundary = float(system.energy_density(state)[cut].mean()) if cut.any() else lam
+        phi_s, n_new = _seed_holes(phi, ls, model, g_nodes, lam_boundary, hole_radius, st.hole_spacing, X, Y)
+        if n_new:
+            phi = ls.reinitialize(ls.clamp(phi_s, model.solid_sdf, model.empty_sdf))
+            S.last_seed = it
+            lam = _multiplier(phi, ws, vscale, S.step, S.target + S.lost, ls, model)
+
+    speed = np.clip((ws - lam) / vscale, -1.0, 1.0)
+    phi = ls.advect(phi, speed, S.step)
+    phi = ls.reinitialize(ls.clamp(phi, model.solid_sdf, model.empty_sdf))
+    if morph and S.goal_reached_at >= 0 and it >= S.goal_reached_at + MORPH_AFTER:
+        before = float(ls.fractions(phi).mean())
+        phi = _fabrication_filter(phi, ls, model, fab)
+        S.lost = before - float(ls.fractions(phi).mean())
+    S.prev_frac = frac
+    S.phi = phi
 
 
 def _multiplier(phi, ws, vscale, step, target, ls, model) -> float:
