@@ -5,18 +5,24 @@ from __future__ import annotations
 from ..spec import ProblemError
 
 
-def _levelset(problem, progress=None):
+def _levelset(problem, progress=None, checkpoint=None):
     from .levelset import run
 
-    return run(problem, progress=progress)
+    return run(problem, progress=progress, checkpoint=checkpoint)
 
 
 METHODS = {"levelset": _levelset}
 
 
-def optimize(problem, progress=None):
-    """Run the method named in ``problem.method.name``."""
+CHECKPOINTED = {"levelset"}  # methods that can save and resume their loop
+
+
+def optimize(problem, progress=None, checkpoint=None):
+    """Run the method named in ``problem.method.name``. ``checkpoint`` (see
+    levelform.checkpoint) is used by the methods in CHECKPOINTED and ignored by the others."""
     name = problem.method.name
     if name not in METHODS:
         raise ProblemError([f"method.name: unknown method {name!r}; valid: {', '.join(sorted(METHODS))}"])
+    if name in CHECKPOINTED:
+        return METHODS[name](problem, progress=progress, checkpoint=checkpoint)
     return METHODS[name](problem, progress=progress)
