@@ -135,3 +135,11 @@ def test_console_script_help_and_version():
         assert word in res.stdout
     res = subprocess.run([sys.executable, "-m", "levelform.cli", "--version"], capture_output=True, text=True)
     assert res.returncode == 0 and "levelform" in res.stdout
+
+
+def test_two_runs_give_byte_identical_outline_files(tmp_path):
+    prob = _write(tmp_path, SMALL)
+    for out in ("a", "b"):
+        assert main(["run", str(prob), "-o", str(tmp_path / out), "-q"]) == 0
+    for name in ("outline.svg", "outline.dxf", "outline.geojson", "history.csv"):
+        assert (tmp_path / "a" / name).read_bytes() == (tmp_path / "b" / name).read_bytes(), name
