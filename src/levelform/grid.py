@@ -109,21 +109,30 @@ class Model:
 
 def load_path_intact(model: Model, phi: np.ndarray) -> bool:
     """Every load reaches some support through material: material nodes (phi < 0) joined
-    through grid edges, a load or support counting as touched when material lies within one
+    through grid edges and cell diagonals, a load or support counting as touched when material lies within one
     node of any of its nodes."""
     from scipy import ndimage as ndi
 
     mat = (phi < 0.0) & model.node_active
-    labels, _ = ndi.label(mat)
-    grown = ndi.grey_dilation(labels, size=(3, 3))  # labels seen within one node
-    flat = grown.ravel()
+    # Diagonal neighbours count: a member one cell wide running at 45 degrees joins its
+    # nodes only through cell corners (its cells still carry load through their fractions).
+    labels, _ = ndi.label(mat, structure=np.ones((3, 3), int))
+    ny1, nx1 = labels.shape
+
+    def touched(nodes) -> set:
+        j, i = np.divmod(np.asarray(nodes), nx1)
+        found = set()
+        for dj in (-1, 0, 1):
+            for di in (-1, 0, 1):
+                jj, ii = j + dj, i + di
+                ok = (jj >= 0) & (jj < ny1) & (ii >= 0) & (ii < nx1)
+                found.update(int(v) for v in labels[jj[ok], ii[ok]] if v > 0)
+        return found
+
     support_labels = set()
     for nodes in model.support_nodes:
-        support_labels.update(int(v) for v in flat[nodes] if v > 0)
-    for nodes in model.load_nodes:
-        if not any(int(v) in support_labels for v in flat[nodes] if v > 0):
-            return False
-    return True
+        support_labels |= touched(nodes)
+    return all(touched(nodes) & support_labels for nodes in model.load_nodes)
 
 
 def make_grid(problem: Problem) -> GridInfo:

@@ -28,6 +28,7 @@ CONVERGE_TOL, CONVERGE_WINDOW = 1e-3, 5
 VOLUME_TOL = 0.005  # relative to the goal
 CHECKPOINT_EVERY = 5  # iterations between checkpoints
 DIVERGE_RISES = 15  # consecutive compliance rises at the goal volume that stop a run
+LOST_PATH_LIMIT = 30  # consecutive iterations without a load path that stop a run
 MORPH_AFTER = 12  # fabrication filter from this many iterations after the volume reached the goal
 # (after the last hole seeding, which ends 10 iterations after it)
 SEED_EVERY, SEED_AREA = 5, 0.02  # hole seeding period (iterations), area opened per event
@@ -102,6 +103,7 @@ class _Loop:
     goal_reached_at: int  # -1 until the target reaches the goal
     lost: float
     rises: int  # consecutive compliance rises at the goal volume
+    cut: int = 0  # consecutive iterations without a load path
 
     def to_arrays(self) -> dict:
         hist = np.array([[getattr(r, f.name) for f in fields(IterationRecord)] for r in self.history], float)
@@ -110,7 +112,7 @@ class _Loop:
             "step": np.float64(self.step), "prev_target": np.float64(self.prev_target),
             "prev_frac": self.prev_frac, "history": hist.reshape(-1, len(fields(IterationRecord))),
             "last_seed": np.int64(self.last_seed), "goal_reached_at": np.int64(self.goal_reached_at),
-            "lost": np.float64(self.lost), "rises": np.int64(self.rises),
+            "lost": np.float64(self.lost), "rises": np.int64(self.rises), "cut": np.int64(self.cut),
         }
 
     @classmethod
@@ -124,7 +126,7 @@ class _Loop:
             it=int(d["it"]), phi=np.array(d["phi"], float), target=float(d["target"]), step=float(d["step"]),
             prev_target=float(d["prev_target"]), prev_frac=np.array(d["prev_frac"], float), history=history,
             last_seed=int(d["last_seed"]), goal_reached_at=int(d["goal_reached_at"]), lost=float(d["lost"]),
-            rises=int(d["rises"]),
+            rises=int(d["rises"]), cut=int(d["cut"]),
         )
 
 
@@ -171,12 +173,12 @@ def run(problem: Problem, progress=None, checkpoint=None) -> Result:
             except FloatingPointError as exc:
                 status = f"numerical failure: {exc}"
                 break
-            if not load_path_intact(model, S.phi):
-                status = "load path lost: no material connects a load to a support"
-                if best is None:
-                    best = (S.phi.copy(), frac, state)
-                break
+            intact = load_path_intact(model, S.phi)
+            S.cut = 0 if intact else S.cut + 1
             best = (S.phi.copy(), frac, state)
+            if S.cut >= LOST_PATH_LIMIT:  # a passing cut can heal; a lasting one ends the run
+                status = f"load path lost: no material has connected a load to a support for {S.cut} iterations"
+                break
             c = state.compliance
             vol = float(frac.mean())
             at_goal = abs(S.prev_target - goal) < 1e-12 and abs(S.target - goal) < 1e-12
@@ -216,6 +218,8 @@ def run(problem: Problem, progress=None, checkpoint=None) -> Result:
 
     if best is None:
         raise FloatingPointError(status)
+    if S.cut and not status.startswith("load path lost"):
+        converged, status = False, "load path lost: the final design connects no load to a support"
     phi, frac, state = best
     phi_out = np.where(a, phi, np.nan)
     domain = domain_polygon(problem)
