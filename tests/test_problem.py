@@ -576,3 +576,55 @@ def test_documented_toml_error_is_what_the_reader_says(tmp_path, monkeypatch):
     with pytest.raises(ProblemError) as info:
         load_problem("bracket.toml")
     assert "error: " + info.value.problems[0] == _doc_blocks("text")[1].strip()
+
+
+# Settings of the density-based (SIMP) and evolutionary (BESO) methods. Ranges: a SIMP
+# penalty p = 1 is the variable-thickness sheet, p > 1 penalizes intermediate densities and
+# p = 3 is the usual choice (Bendsoe and Sigmund 2003, Topology Optimization; from memory);
+# evolution rate and admission ratio are fractions of the domain per iteration (Huang and
+# Xie 2007, Finite Elem. Anal. Des. 43:1039-1049). The upper limits (p <= 10, rate <= 0.2)
+# are common practice, no source.
+BAD_METHOD = [
+    ("penalty-low", make(method="[method]\npenalty = 0.5\n"), "method.penalty", "[1, 10]"),
+    ("penalty-high", make(method="[method]\npenalty = 11\n"), "method.penalty", "got 11"),
+    ("penalty-text", make(method='[method]\npenalty = "3"\n'), "method.penalty", None),
+    ("filter-radius-zero", make(method="[method]\nfilter_radius = 0\n"),
+     "method.filter_radius", "> 0 mm"),
+    ("filter-name", make(method='[method]\nfilter = "densty"\n'), "method.filter",
+     "did you mean 'density'"),
+    ("projection-number", make(method="[method]\nprojection = 1\n"), "method.projection",
+     "true or false"),
+    ("projection-sensitivity", make(method='[method]\nname = "density"\nprojection = true\n'
+                                           'filter = "sensitivity"\n'),
+     "method.projection", 'filter = "density"'),
+    ("evolution-rate-zero", make(method="[method]\nevolution_rate = 0\n"),
+     "method.evolution_rate", "(0, 0.2]"),
+    ("evolution-rate-high", make(method="[method]\nevolution_rate = 0.25\n"),
+     "method.evolution_rate", "got 0.25"),
+    ("admission-cap-high", make(method="[method]\nadmission_cap = 1.5\n"),
+     "method.admission_cap", "(0, 1]"),
+    ("method-name-simp", make(method='[method]\nname = "SIMP"\n'), "method.name",
+     "did you mean 'density'"),
+    ("method-name-beso", make(method='[method]\nname = "beso"\n'), "method.name",
+     "did you mean 'evolutionary'"),
+]
+
+
+@pytest.mark.parametrize("text,key,fragment", [b[1:] for b in BAD_METHOD],
+                         ids=[b[0] for b in BAD_METHOD])
+def test_bad_method_setting_names_the_key(tmp_path, text, key, fragment):
+    test_bad_input_names_the_key(tmp_path, text, key, fragment)
+
+
+@pytest.mark.parametrize("name", ["density", "evolutionary", "levelset"])
+def test_settings_of_every_method_parse_under_any_name(tmp_path, name):
+    # One file runs with each method by changing the name: the other methods' keys are
+    # checked and kept, and ignored by the method that runs (docs/problem-format.md).
+    text = make(method=f'[method]\nname = "{name}"\npenalty = 4\nfilter_radius = 5.0\n'
+                       'filter = "sensitivity"\nprojection = false\nevolution_rate = 0.03\n'
+                       "admission_cap = 0.05\nsmoothing = 6.0\n")
+    p = load_problem(write(tmp_path, text))
+    assert p.method == Method(name=name, penalty=4.0, filter_radius=5.0, filter="sensitivity",
+                              projection=False, evolution_rate=0.03, admission_cap=0.05,
+                              smoothing=6.0)
+    assert isinstance(p.method.penalty, float)

@@ -44,7 +44,8 @@ else:  # pragma: no cover - exercised only on old interpreters
 __all__ = ["load_problem", "parse_problem", "METHOD_NAMES", "SOLVERS"]
 
 # Adding an optimization method to the accepted names is one entry here.
-METHOD_NAMES = ("levelset",)
+METHOD_NAMES = ("levelset", "density", "evolutionary")
+FILTERS = ("density", "sensitivity")
 SOLVERS = ("auto", "direct", "iterative")
 FIXES = ("x", "y", "xy")
 KEEPS = ("solid", "empty")
@@ -63,9 +64,17 @@ _LOAD_KEYS = ("point", "segment", "force", "force_per_length", "case", "pad")
 _CASE_KEYS = ("name", "weight")
 _REGION_KEYS = ("keep", "circle", "box", "polygon")
 _GOAL_KEYS = ("material",)
-_METHOD_LENGTHS = ("smoothing", "pad_radius", "step", "hole_spacing")
+_METHOD_LENGTHS = ("smoothing", "pad_radius", "step", "hole_spacing", "filter_radius")
 _METHOD_KEYS = ("name", "iterations", "smoothing", "seed_holes", "initial_holes", "pads", "pad_radius",
-                "step", "hole_spacing", "volume_step", "ersatz", "solver")
+                "step", "hole_spacing", "volume_step", "ersatz", "solver", "penalty", "filter_radius",
+                "filter", "projection", "evolution_rate", "admission_cap")
+# Settings of one method are accepted (and checked) under every method name and ignored by
+# the others, so one file can be run with each method by changing ``name`` only.
+_METHOD_FRACTIONS = {  # key: (low, high, what); each must lie in (low, high]
+    "evolution_rate": (0.0, 0.2, "the volume reduction per iteration, a number"),
+    "admission_cap": (0.0, 1.0, "the most of the domain switched from soft to solid per "
+                                "iteration, a number"),
+}
 
 
 # ---------------------------------------------------------------------------
@@ -370,7 +379,8 @@ def _circle(v, path, errs, lu):
 # Words users may write for a valid value; only used to suggest the right one.
 _ALIASES = {"void": "empty", "hole": "empty", "none": "empty", "full": "solid",
             "material": "solid", "both": "xy", "yx": "xy", "all": "xy", "xz": "xy",
-            "fixed": "xy", "pinned": "xy", "level-set": "levelset", "level_set": "levelset"}
+            "fixed": "xy", "pinned": "xy", "level-set": "levelset", "level_set": "levelset",
+            "simp": "density", "beso": "evolutionary", "evolution": "evolutionary"}
 
 
 def _choice(v, path, errs, options, what):
@@ -836,6 +846,29 @@ def _parse_method(data, units, errs):
             _err(errs, "method.ersatz", f"must lie in [1e-9, 0.1], got {_g(v)}")
             v = None
         keep("ersatz", v)
+    if "penalty" in t:
+        v = _number(t["penalty"], "method.penalty", errs, "the SIMP penalty exponent, a number")
+        if v is not None and not 1.0 <= v <= 10.0:
+            _err(errs, "method.penalty", f"must lie in [1, 10], got {_g(v)}")
+            v = None
+        keep("penalty", v)
+    if "filter" in t:
+        keep("filter", _choice(t["filter"], "method.filter", errs, FILTERS, "a filter"))
+    if "projection" in t:
+        keep("projection", _flag(t, "projection", "method", errs))
+    for key, (low, high, what) in _METHOD_FRACTIONS.items():
+        if key in t:
+            v = _number(t[key], f"method.{key}", errs, what)
+            if v is not None and not low < v <= high:
+                _err(errs, f"method.{key}", f"must lie in ({_g(low)}, {_g(high)}] (greater than "
+                                            f"{_g(low)}, at most {_g(high)}), got {_g(v)}")
+                v = None
+            keep(key, v)
+    if (ok and got.get("name") == "density" and got.get("projection")
+            and got.get("filter") == "sensitivity"):
+        _err(errs, "method.projection", 'projection acts on filtered densities: it needs '
+                                        'filter = "density", got filter = "sensitivity"')
+        ok = False
     return Method(**got) if ok else None
 
 

@@ -11,7 +11,19 @@ def _levelset(problem, progress=None, checkpoint=None):
     return run(problem, progress=progress, checkpoint=checkpoint)
 
 
-METHODS = {"levelset": _levelset}
+def _density(problem, progress=None):
+    from .density import run
+
+    return run(problem, progress=progress)
+
+
+def _evolutionary(problem, progress=None):
+    from .evolutionary import run
+
+    return run(problem, progress=progress)
+
+
+METHODS = {"levelset": _levelset, "density": _density, "evolutionary": _evolutionary}
 
 
 CHECKPOINTED = {"levelset"}  # methods that can save and resume their loop
