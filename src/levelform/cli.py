@@ -30,13 +30,31 @@ def _parser() -> argparse.ArgumentParser:
     r = sub.add_parser("run", help="optimize a problem file and write outlines, figures and a summary")
     r.add_argument("problem", help="problem file (TOML, see docs/problem-format.md)")
     r.add_argument("-o", "--out", metavar="OUTDIR", help="output folder (default: <problem name>-results next to the file)")
-    r.add_argument("--method", help="override [method] name (levelset)")
+    r.add_argument("--method", help="override [method] name: levelset, density or evolutionary")
     r.add_argument("--overwrite", action="store_true", help="replace the results in an existing output folder")
     r.add_argument("--resume", action="store_true", help="continue an interrupted run from its last checkpoint in OUTDIR")
+    r.add_argument("--no-verify", action="store_true", help="skip the body-fitted re-check of the exported outline")
     r.add_argument("-q", "--quiet", action="store_true", help="no per-iteration progress lines")
 
     c = sub.add_parser("check", help="validate a problem file and estimate its size, without solving")
     c.add_argument("problem", help="problem file (TOML)")
+
+    v = sub.add_parser("verify", help="re-check an exported outline on a body-fitted mesh: compliance, "
+                       "displacement, peak von Mises stress")
+    v.add_argument("target", help="a results folder of `levelform run`, or a problem file (TOML) with --outline")
+    v.add_argument("--outline", metavar="FILE", help="outline to check (GeoJSON or DXF), e.g. one edited in CAD")
+    v.add_argument("-o", "--out", metavar="OUTDIR", help="where to write verify.json, stress.png, verify.vtu "
+                   "(default: the results folder, or <outline name>-verify)")
+    v.add_argument("--mesh-size", type=float, metavar="LENGTH", help="element size (default: the cell size)")
+
+    k = sub.add_parser("compare", help="optimize one problem with several methods and compare their crisp outlines "
+                       "by one common analysis")
+    k.add_argument("problem", help="problem file (TOML, see docs/problem-format.md)")
+    k.add_argument("-o", "--out", metavar="OUTDIR", help="output folder (default: <problem file name>-compare next to the file)")
+    k.add_argument("--methods", default="levelset,density,evolutionary",
+                   help="comma-separated method names (default: levelset,density,evolutionary)")
+    k.add_argument("--overwrite", action="store_true", help="replace the results in an existing output folder")
+    k.add_argument("-q", "--quiet", action="store_true", help="no per-iteration progress lines")
     return p
 
 
@@ -66,7 +84,32 @@ def _with_method(problem, name):
     return dataclasses.replace(problem, method=dataclasses.replace(problem.method, name=name))
 
 
-def _solve_and_export(problem, outdir: Path, quiet: bool, overwrite: bool, resume: bool = False) -> int:
+def _verify_and_report(problem, outline, outdir: Path, grid_compliance, mesh_size=None) -> dict:
+    """Body-fitted re-check of ``outline``; writes verify.json, stress.png, verify.vtu and
+    prints the figures, its warnings and its problems. Returns the files written."""
+    from .verify import verify_outline, write_verification
+
+    v = verify_outline(problem, outline, mesh_size=mesh_size, grid_compliance=grid_compliance)
+    files = write_verification(v, outdir, problem)
+    u = problem.units
+    if v.compliance is not None:
+        diff = "" if v.relative_difference is None else f" ({100 * v.relative_difference:+.1f} % against the grid)"
+        print(f"body-fitted check ({v.elements} quadratic triangles of about {v.mesh_size:.3g} {u.length}):\n"
+              f"  compliance         {v.compliance:.6g} {u.compliance}{diff}\n"
+              f"  max displacement   {v.max_displacement:.4g} {u.length} at ({v.max_displacement_at[0]:.4g}, "
+              f"{v.max_displacement_at[1]:.4g})\n"
+              f"  peak von Mises     {v.max_von_mises:.4g} {u.stress} at ({v.max_von_mises_at[0]:.4g}, "
+              f"{v.max_von_mises_at[1]:.4g})", flush=True)
+    for w in v.warnings:
+        print(f"warning: verify: {w}", file=sys.stderr)
+    for msg in v.problems:
+        print(f"error: verify: {msg}", file=sys.stderr)
+    files["_ok"] = v.ok
+    return files
+
+
+def _solve_and_export(problem, outdir: Path, quiet: bool, overwrite: bool, resume: bool = False,
+                      verify: bool = True) -> int:
     from .checkpoint import CheckpointFile
     from .grid import resolution_warnings, resolve_settings
     from .methods import optimize
@@ -88,11 +131,14 @@ def _solve_and_export(problem, outdir: Path, quiet: bool, overwrite: bool, resum
 
     print(f"levelform {__version__}: {problem.name} ({problem.method.name})"
           + (" resuming from the last checkpoint" if resume else ""), flush=True)
-    for msg in resolution_warnings(resolve_settings(problem), problem.domain.cell):
-        print(f"warning: {msg}", file=sys.stderr)
+    if problem.method.name == "levelset":  # the smoothing length is the level set's
+        for msg in resolution_warnings(resolve_settings(problem), problem.domain.cell):
+            print(f"warning: {msg}", file=sys.stderr)
     result = optimize(problem, progress=None if quiet else _progress_line, checkpoint=checkpoint)
     files = export(result, outdir)
     interrupted = result.status == "interrupted"
+    if verify and not interrupted:
+        files.update(_verify_and_report(problem, result.outline, outdir, result.compliance, mesh_size=None))
     if not interrupted:
         checkpoint.remove()
     u = problem.units
@@ -102,7 +148,8 @@ def _solve_and_export(problem, outdir: Path, quiet: bool, overwrite: bool, resum
         f"  material fraction  {result.material_fraction:.4f} (goal {problem.goal.material:.4f})\n"
         f"  outline area       {result.outline.area:.6g} {u.length}^2, "
         f"{sum(len(p.interiors) for p in getattr(result.outline, 'geoms', [])):d} holes\n"
-        f"  results in         {outdir}{os.sep} ({', '.join(sorted(files))})\n\nCaution: {CAUTION}",
+        f"  results in         {outdir}{os.sep} ({', '.join(sorted(k for k in files if not k.startswith('_')))})"
+        f"\n\nCaution: {CAUTION}",
         flush=True,
     )
     if interrupted:
@@ -119,7 +166,83 @@ def cmd_run(args) -> int:
 
     problem = _with_method(load_problem(args.problem), args.method)
     out = Path(args.out) if args.out else Path(args.problem).with_name(f"{Path(args.problem).stem}-results")
-    return _solve_and_export(problem, out, args.quiet, args.overwrite, args.resume)
+    return _solve_and_export(problem, out, args.quiet, args.overwrite, args.resume, verify=not args.no_verify)
+
+
+def cmd_verify(args) -> int:
+    import json
+
+    from .problem import load_problem
+    from .verify import read_outline
+
+    target = Path(args.target)
+    if args.mesh_size is not None and not (args.mesh_size > 0 and args.mesh_size < float("inf")):
+        return _errors([f"--mesh-size: must be a positive length, got {args.mesh_size}"])
+    grid_compliance = None
+    if target.is_dir():
+        summary_path = target / "summary.json"
+        if not summary_path.is_file():
+            return _errors([f"{target}: not a results folder of `levelform run` (no summary.json); "
+                            "give a problem file and --outline instead"])
+        try:
+            summary = json.loads(summary_path.read_text(encoding="utf-8"))
+            source = summary["problem"]["source"]
+            grid_compliance = summary.get("crisp_compliance", summary.get("compliance"))
+        except (ValueError, KeyError, TypeError) as exc:
+            return _errors([f"{summary_path}: cannot be read ({exc})"])
+        if not source or not Path(source).is_file():
+            return _errors([f"{summary_path}: the problem file {source!r} it names is not there; "
+                            "give a problem file and --outline instead"])
+        problem = load_problem(source)
+        outline_file = Path(args.outline) if args.outline else target / "outline.geojson"
+        out = Path(args.out) if args.out else target
+    else:
+        if not args.outline:
+            return _errors([f"--outline: needed when {target} is a problem file (or give a results folder)"])
+        problem = load_problem(target)
+        outline_file = Path(args.outline)
+        out = Path(args.out) if args.out else outline_file.with_name(f"{outline_file.stem}-verify")
+    if args.outline and target.is_dir():
+        grid_compliance = None  # an edited outline: the grid figure belongs to another shape
+    outline = read_outline(outline_file)
+    files = _verify_and_report(problem, outline, out, grid_compliance, mesh_size=args.mesh_size)
+    ok = files.pop("_ok")
+    print(f"  results in         {out}{os.sep} ({', '.join(sorted(files))})\n\nCaution: {CAUTION}", flush=True)
+    return EXIT_OK if ok else EXIT_FAIL
+
+
+def cmd_compare(args) -> int:
+    from .compare import check_methods, compare_methods, write_comparison
+    from .problem import load_problem
+
+    methods = check_methods(args.methods, key="--methods")
+    problem = load_problem(args.problem)
+    out = Path(args.out) if args.out else Path(args.problem).with_name(f"{Path(args.problem).stem}-compare")
+    if out.exists() and not out.is_dir():
+        return _errors([f"-o: {out} exists and is not a folder"])
+    if out.is_dir() and any(out.iterdir()) and not args.overwrite:
+        return _errors([f"-o: output folder {out} is not empty; pass --overwrite to replace its results or choose another folder"])
+
+    def progress(method, rec):
+        print(f"{method:>12s} ", end="")
+        _progress_line(rec)
+
+    print(f"levelform {__version__}: {problem.name}, comparing {', '.join(methods)}", flush=True)
+    comparison = compare_methods(problem, methods=methods, progress=None if args.quiet else progress)
+    files = write_comparison(comparison, out)
+    u = problem.units
+    print(f"\n{'method':>12s}  {'crisp compliance':>16s}  {'ratio':>6s}  {'material':>8s}  {'holes':>5s}  "
+          f"{'iter':>5s}  {'time':>7s}  status")
+    for m in methods:
+        r = comparison.rows[m]
+        ratio = "-" if r["ratio_to_levelset"] is None else f"{r['ratio_to_levelset']:.3f}"
+        print(f"{m:>12s}  {r['crisp_compliance']:16.6g}  {ratio:>6s}  {r['material_fraction']:8.4f}  "
+              f"{r['holes']:5d}  {r['iterations']:5d}  {r['seconds']:6.1f}s  {r['status']}")
+    ev = comparison.evaluation
+    print(f"\n  compliance in {u.compliance}; every outline analysed on cells of {ev['grid_cell']:g} {u.length}, "
+          f"void stiffness ratio {ev['ersatz']:g}\n"
+          f"  results in {out}{os.sep} ({', '.join(sorted(files))})\n\nCaution: {CAUTION}", flush=True)
+    return EXIT_OK
 
 
 def cmd_check(args) -> int:
@@ -129,8 +252,9 @@ def cmd_check(args) -> int:
 
     problem = load_problem(args.problem)
     model = build_model(problem)
-    for msg in resolution_warnings(model.settings, model.grid.h):
-        print(f"warning: {msg}", file=sys.stderr)
+    if problem.method.name == "levelset":
+        for msg in resolution_warnings(model.settings, model.grid.h):
+            print(f"warning: {msg}", file=sys.stderr)
     g = model.grid
     st = model.settings
     u = problem.units.length
@@ -167,7 +291,8 @@ def main(argv=None) -> int:
     if args.command is None:
         parser.print_help()
         return EXIT_BAD_INPUT
-    handler = {"run": cmd_run, "check": cmd_check, "demo": cmd_demo}[args.command]
+    handler = {"run": cmd_run, "check": cmd_check, "demo": cmd_demo, "compare": cmd_compare,
+               "verify": cmd_verify}[args.command]
     try:
         return handler(args)
     except ProblemError as exc:

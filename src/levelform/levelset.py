@@ -32,6 +32,15 @@ def cell_fraction(corner_phi: np.ndarray) -> np.ndarray:
     return out
 
 
+def separated_saddles(corner_phi: np.ndarray) -> np.ndarray:
+    """Cells whose material sits in two opposite corners that the zero contour keeps apart
+    (the mean of the corners is not negative): the outline has no material link across
+    them, so the analysis must not give them one either."""
+    neg = np.asarray(corner_phi) < 0.0
+    saddle = (neg[:, 0] == neg[:, 2]) & (neg[:, 1] == neg[:, 3]) & (neg[:, 0] != neg[:, 1])
+    return saddle & (np.asarray(corner_phi).mean(axis=1) >= 0.0)
+
+
 def _cut_cell_fraction(p: np.ndarray) -> np.ndarray:
     """Marching-squares area for cells with corners of both signs."""
     n = p.shape[0]
@@ -98,6 +107,13 @@ class LevelSetGrid:
     # -- geometry -------------------------------------------------------------------
     def fractions(self, phi: np.ndarray) -> np.ndarray:
         return cell_fraction(phi.ravel()[self.cell_nodes])
+
+    def stiffness_fractions(self, phi: np.ndarray) -> np.ndarray:
+        """Material fraction for the stiffness: the area fraction, except that a cell whose
+        two material corners the outline keeps apart carries nothing across (a cell-wise
+        stiffness would join them, a link the exported outline does not have)."""
+        corners = phi.ravel()[self.cell_nodes]
+        return np.where(separated_saddles(corners), 0.0, cell_fraction(corners))
 
     def upwind_norms(self, phi: np.ndarray):
         """Godunov upwind |grad phi| for an outward (V > 0) and an inward (V < 0) speed."""

@@ -167,7 +167,7 @@ def run(problem: Problem, progress=None, checkpoint=None) -> Result:
             if checkpoint is not None and (it - 1) % CHECKPOINT_EVERY == 0 and it > 1:
                 checkpoint.save(S.to_arrays())
             frac = ls.fractions(S.phi)
-            scale = st.ersatz + (1.0 - st.ersatz) * frac
+            scale = st.ersatz + (1.0 - st.ersatz) * ls.stiffness_fractions(S.phi)
             try:
                 state = system.analyse(scale)
             except FloatingPointError as exc:
