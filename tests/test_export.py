@@ -6,6 +6,7 @@ import json
 import math
 import os
 import xml.etree.ElementTree as ET
+from pathlib import Path
 
 import ezdxf
 import numpy as np
@@ -262,3 +263,19 @@ def test_empty_outline_still_exports(tmp_path):
     assert shape(gj["features"][0]["geometry"]).is_empty
     ET.parse(paths["outline.svg"])
     assert math.isfinite(data["domain_area"])
+
+
+def test_dxf_identical_across_processes_with_different_hash_seeds(tmp_path):
+    # Python randomizes string hashing per process (PYTHONHASHSEED); nothing in the files may
+    # depend on set iteration order.
+    import subprocess
+    import sys
+
+    code = ("import sys; sys.path.insert(0, {tests!r}); from test_export import make_result, ex; "
+            "sys.stdout.buffer.write(ex.outline_dxf(make_result()) + ex.outline_svg(make_result()).encode() "
+            "+ ex.outline_geojson(make_result()).encode())").format(tests=str(Path(__file__).parent))
+    outs = []
+    for seed in ("1", "2", "3"):
+        env = {**os.environ, "PYTHONHASHSEED": seed}
+        outs.append(subprocess.run([sys.executable, "-c", code], capture_output=True, env=env, check=True).stdout)
+    assert outs[0] == outs[1] == outs[2]

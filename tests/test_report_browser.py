@@ -93,7 +93,7 @@ class DevToolsPipe:
         raw, self._buf = self._buf.split(b"\0", 1)
         return json.loads(raw)
 
-    def send(self, method: str, params=None, session=None, timeout: float = 15.0) -> dict:
+    def send(self, method: str, params=None, session=None, timeout: float = 60.0) -> dict:
         self._id += 1
         msg = {"id": self._id, "method": method, "params": params or {}}
         if session:
@@ -108,7 +108,7 @@ class DevToolsPipe:
                 return reply.get("result", {})
             self.events.append(reply)
 
-    def wait_event(self, method: str, timeout: float = 15.0) -> dict:
+    def wait_event(self, method: str, timeout: float = 60.0) -> dict:
         deadline = time.monotonic() + timeout
         for ev in self.events:
             if ev.get("method") == method:

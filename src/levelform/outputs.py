@@ -297,6 +297,22 @@ def _fixed_dxf_metadata():
         ezdxf.options.write_fixed_meta_data_for_testing = old
 
 
+def _sorted_dxf_classes(text: str) -> str:
+    """ezdxf writes some CLASS records in the iteration order of a set of type names, which
+    changes from one Python process to the next; sorting the records by name makes the file
+    byte-identical across runs (the order of CLASS records carries no meaning)."""
+    head = "  0\nSECTION\n  2\nCLASSES\n"
+    start = text.find(head)
+    if start < 0:
+        return text
+    body_start = start + len(head)
+    end = text.find("  0\nENDSEC\n", body_start)
+    body = text[body_start:end]
+    records = ["  0\nCLASS\n" + r for r in body.split("  0\nCLASS\n") if r]
+    records.sort(key=lambda r: r.split("\n", 4)[3])  # the class's DXF record name (group 1)
+    return text[:body_start] + "".join(records) + text[end:]
+
+
 def outline_dxf(result: Result) -> bytes:
     """DXF R2010 of the outline: closed LWPOLYLINEs on layers OUTLINE / HOLES, the
     domain, keep regions, support markers and load arrows on their own layers.
@@ -365,7 +381,7 @@ def outline_dxf(result: Result) -> bytes:
                                head - 0.6 * s * d - 0.25 * s * t]), "LOADS")
         stream = io.StringIO()
         doc.write(stream)
-        return doc.encode(stream.getvalue())
+        return doc.encode(_sorted_dxf_classes(stream.getvalue()))
 
 
 # --------------------------------------------------------------------------- GeoJSON

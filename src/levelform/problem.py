@@ -24,6 +24,7 @@ from shapely.validation import explain_validity
 from . import resources
 from .spec import (
     Domain,
+    Fabrication,
     Goal,
     Load,
     LoadCase,
@@ -55,7 +56,7 @@ MAX_MAGNITUDE = 1e100  # keeps squares and areas far from float overflow
 MAX_UNIT_CHARS = 16
 
 _TOP_KEYS = ("name", "description", "units", "material", "domain", "support", "load",
-             "case", "region", "goal", "method")
+             "case", "region", "goal", "method", "fabrication")
 _UNITS_KEYS = ("length", "force")
 _MATERIAL_KEYS = ("E", "nu", "thickness")
 _DOMAIN_KEYS = ("outline", "holes", "cell")
@@ -63,7 +64,8 @@ _SUPPORT_KEYS = ("point", "segment", "box", "fix", "pad")
 _LOAD_KEYS = ("point", "segment", "force", "force_per_length", "case", "pad")
 _CASE_KEYS = ("name", "weight")
 _REGION_KEYS = ("keep", "circle", "box", "polygon")
-_GOAL_KEYS = ("material",)
+_GOAL_KEYS = ("material", "min_member", "min_hole")
+_FABRICATION_KEYS = ("min_member", "min_hole")
 _METHOD_LENGTHS = ("smoothing", "pad_radius", "step", "hole_spacing", "filter_radius")
 _METHOD_KEYS = ("name", "iterations", "smoothing", "seed_holes", "initial_holes", "pads", "pad_radius",
                 "step", "hole_spacing", "volume_step", "ersatz", "solver", "penalty", "filter_radius",
@@ -145,6 +147,7 @@ def parse_problem(data: dict, name: str = "problem", source=None) -> Problem:
     regions = _parse_array(data, "region", _parse_region, units, errs, missing=None)
     goal = _parse_goal(data, errs)
     method = _parse_method(data, units, errs)
+    fabrication = _parse_fabrication(data, units, errs)
 
     cases = _check_cases(data, declared, loads, errs)
     placed = True
@@ -153,6 +156,8 @@ def parse_problem(data: dict, name: str = "problem", source=None) -> Problem:
     if placed:  # a support off the plate would only add a confusing second message
         _check_rigid_body(supports, domain_shape, _outline_bounds(data), errs)
     _check_regions(regions, supports, loads, domain_shape, goal, units, errs)
+    if placed and domain_shape is not None:
+        _check_load_paths(regions, supports, loads, domain_shape, errs)
     if domain is not None:
         _check_grid(domain_shape, domain.cell, units, errs)
 
@@ -168,6 +173,7 @@ def parse_problem(data: dict, name: str = "problem", source=None) -> Problem:
         regions=tuple(regions),
         goal=goal,
         method=method,
+        fabrication=fabrication,
         name=title,
         source=None if source is None else str(source),
         raw=data,
@@ -793,6 +799,50 @@ def _parse_goal(data, errs):
                                     f"excluded), got {_g(m)}")
         m = None
     return None if m is None else Goal(material=m)
+
+
+def _parse_fabrication(data, units, errs):
+    """Fabrication limits, lengths, from a [fabrication] table or from [goal] (not both)."""
+    found = {}
+    for section in ("goal", "fabrication"):
+        t = data.get(section)
+        if section == "fabrication" and t is not None and not isinstance(t, dict):
+            _err(errs, "fabrication", f"expected a table [fabrication], got {_show(t)}")
+            continue
+        if not isinstance(t, dict):
+            continue
+        if section == "fabrication":
+            _check_keys(t, _FABRICATION_KEYS, "fabrication", errs)
+        for key in _FABRICATION_KEYS:
+            if key not in t:
+                continue
+            path = f"{section}.{key}"
+            if key in found:
+                _err(errs, path, f"also given as {found[key][0]}; give each limit once")
+                continue
+            v = _number(t[key], path, errs, f"a length in {units.length}")
+            if v is not None and not v > 0:
+                _err(errs, path, f"must be > 0 {units.length}, got {_g(v)}")
+                v = None
+            found[key] = (path, v)
+    return Fabrication(**{k: v for k, (_, v) in found.items()})
+
+
+def _check_load_paths(regions, supports, loads, domain, errs):
+    """Keep-empty regions must not cut a load off from every support."""
+    empties = [_region_shape(r) for r in regions if r.keep == "empty"]
+    if not empties or not supports or not loads:
+        return
+    free = domain.difference(unary_union(empties))
+    pieces = list(getattr(free, "geoms", [free]))
+    held = {k for k, piece in enumerate(pieces)
+            if any(piece.intersects(_shape_of(s)) for s in supports)}
+    for ld in loads:
+        shape = _shape_of(ld)
+        touched = {k for k, piece in enumerate(pieces) if piece.intersects(shape)}
+        if touched and not touched & held:
+            _err(errs, ld.key, "the keep-empty regions cut this load off from every support: no "
+                               "material could carry it; move or shrink the regions")
 
 
 def _parse_method(data, units, errs):
