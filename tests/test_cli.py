@@ -143,3 +143,24 @@ def test_two_runs_give_byte_identical_outline_files(tmp_path):
         assert main(["run", str(prob), "-o", str(tmp_path / out), "-q"]) == 0
     for name in ("outline.svg", "outline.dxf", "outline.geojson", "history.csv"):
         assert (tmp_path / "a" / name).read_bytes() == (tmp_path / "b" / name).read_bytes(), name
+
+
+def test_verify_a_results_folder_and_an_edited_outline(tmp_path, capsys):
+    prob = _write(tmp_path, SMALL)
+    out = tmp_path / "out"
+    assert main(["run", str(prob), "-o", str(out), "-q", "--no-verify"]) == 0
+    assert not (out / "verify.json").exists()
+    assert main(["verify", str(out)]) == 0
+    record = json.loads((out / "verify.json").read_text())
+    for key in ("compliance", "max_von_mises", "max_displacement", "mesh_size", "elements"):
+        assert key in record
+    assert "licensed engineer" in capsys.readouterr().out
+    # An outline from CAD (here the exported DXF) checked against the problem file.
+    checked = tmp_path / "checked"
+    assert main(["verify", str(prob), "--outline", str(out / "outline.dxf"), "-o", str(checked)]) == 0
+    assert (checked / "stress.png").is_file() and (checked / "verify.vtu").is_file()
+    capsys.readouterr()
+    assert main(["verify", str(prob)]) == 2
+    assert "--outline" in capsys.readouterr().err
+    assert main(["verify", str(prob), "--outline", str(tmp_path / "nope.dxf")]) == 2
+    assert "nope.dxf" in capsys.readouterr().err
