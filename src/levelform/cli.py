@@ -138,13 +138,17 @@ def _solve_and_export(problem, outdir: Path, quiet: bool, overwrite: bool, resum
     files = export(result, outdir)
     interrupted = result.status == "interrupted"
     if verify and not interrupted:
-        files.update(_verify_and_report(problem, result.outline, outdir, result.compliance, mesh_size=None))
+        crisp = result.compliance if result.crisp_compliance is None else result.crisp_compliance
+        files.update(_verify_and_report(problem, result.outline, outdir, crisp, mesh_size=None))
     if not interrupted:
         checkpoint.remove()
     u = problem.units
     print(
         f"\n{result.status} after {result.iterations} iterations in {result.seconds:.1f} s\n"
-        f"  compliance         {result.compliance:.6g} {u.compliance}\n"
+        f"  compliance         {result.compliance:.6g} {u.compliance}"
+        + ("" if result.crisp_compliance is None else
+           f" (the method's own design); crisp outline {result.crisp_compliance:.6g} {u.compliance}")
+        + "\n"
         f"  material fraction  {result.material_fraction:.4f} (goal {problem.goal.material:.4f})\n"
         f"  outline area       {result.outline.area:.6g} {u.length}^2, "
         f"{sum(len(p.interiors) for p in getattr(result.outline, 'geoms', [])):d} holes\n"
