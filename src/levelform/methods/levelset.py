@@ -176,9 +176,6 @@ def run(problem: Problem, progress=None, checkpoint=None) -> Result:
             intact = load_path_intact(model, S.phi)
             S.cut = 0 if intact else S.cut + 1
             best = (S.phi.copy(), frac, state)
-            if S.cut >= LOST_PATH_LIMIT:  # a passing cut can heal; a lasting one ends the run
-                status = f"load path lost: no material has connected a load to a support for {S.cut} iterations"
-                break
             c = state.compliance
             vol = float(frac.mean())
             at_goal = abs(S.prev_target - goal) < 1e-12 and abs(S.target - goal) < 1e-12
@@ -203,6 +200,9 @@ def run(problem: Problem, progress=None, checkpoint=None) -> Result:
                 and max(abs(c - x) for x in recent) < CONVERGE_TOL * c
             ):
                 converged, status = True, "converged"
+                break
+            if S.cut >= LOST_PATH_LIMIT:  # a passing cut can heal; a lasting one ends the run
+                status = f"load path lost: no material has connected a load to a support for {S.cut} iterations"
                 break
             if S.rises >= DIVERGE_RISES:
                 status = f"diverging: compliance rose {S.rises} iterations in a row at the goal volume"

@@ -1,0 +1,69 @@
+"""No silent wrong answers: a non-finite solution, a lost load path and a diverging
+compliance each end the run with a clear status (and the CLI says so)."""
+from __future__ import annotations
+
+import dataclasses as dc
+from pathlib import Path
+
+import numpy as np
+
+import levelform.methods.levelset as levelset_method
+from levelform import load_problem, optimize
+from levelform.analysis import PlateSystem
+from levelform.cli import main
+
+EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
+
+
+def _cantilever(iterations=60):
+    p = load_problem(EXAMPLES / "cantilever.toml")
+    return dc.replace(p, domain=dc.replace(p.domain, cell=2.0), method=dc.replace(p.method, iterations=iterations))
+
+
+def test_non_finite_solution_stops_with_a_status(monkeypatch):
+    real = PlateSystem.analyse
+    calls = {"n": 0}
+
+    def flaky(self, scale):
+        calls["n"] += 1
+        if calls["n"] == 4:
+            raise FloatingPointError("the finite-element solution is not finite")
+        return real(self, scale)
+
+    monkeypatch.setattr(PlateSystem, "analyse", flaky)
+    r = optimize(_cantilever())
+    assert r.status.startswith("numerical failure") and not r.converged
+    assert r.iterations == 3 and np.isfinite(r.compliance)  # the last good design is kept
+
+
+def test_lost_load_path_stops_with_a_status(monkeypatch):
+    monkeypatch.setattr(levelset_method, "load_path_intact", lambda model, phi: False)
+    monkeypatch.setattr(levelset_method, "LOST_PATH_LIMIT", 4)
+    r = optimize(_cantilever())
+    assert r.status.startswith("load path lost") and not r.converged
+    assert r.iterations == 4
+
+
+def test_diverging_compliance_stops_with_a_status(monkeypatch):
+    real = PlateSystem.analyse
+    calls = {"n": 0}
+
+    def rising(self, scale):  # report an ever-growing compliance once the volume is at the goal
+        state = real(self, scale)
+        calls["n"] += 1
+        return dc.replace(state, compliance=state.compliance * (1.0 + 0.01 * calls["n"]))
+
+    monkeypatch.setattr(PlateSystem, "analyse", rising)
+    monkeypatch.setattr(levelset_method, "DIVERGE_RISES", 3)
+    r = optimize(_cantilever(iterations=200))
+    assert r.status.startswith("diverging") and not r.converged
+
+
+def test_cli_warns_when_a_run_did_not_converge(tmp_path, capsys, monkeypatch):
+    monkeypatch.setattr(levelset_method, "load_path_intact", lambda model, phi: False)
+    monkeypatch.setattr(levelset_method, "LOST_PATH_LIMIT", 3)
+    prob = tmp_path / "p.toml"
+    prob.write_text((EXAMPLES / "cantilever.toml").read_text().replace("cell = 1.0", "cell = 2.0"))
+    assert main(["run", str(prob), "-o", str(tmp_path / "out"), "-q", "--no-verify"]) == 0
+    captured = capsys.readouterr()
+    assert "load path lost" in captured.out and "did not converge" in captured.err
