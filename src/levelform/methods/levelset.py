@@ -42,7 +42,9 @@ def _initial_phi(model, ls: LevelSetGrid, X, Y, settings) -> np.ndarray:
         origin = (g.x0 + 0.5 * (W - s * max(1, round(W / s))), g.y0 + 0.5 * (H - s * max(1, round(H / s))))
         phi = perforated_start(X, Y, s, 0.25 * s, origin)
     else:
-        phi = np.full(X.shape, -10.0 * g.h)
+        # Solid everywhere, and "deep" by a length of the domain's size, not of the cell's:
+        # hole seeding asks for material deeper than a hole radius, whatever the grid.
+        phi = np.full(X.shape, -float(np.hypot(g.nx, g.ny)) * g.h)
     phi = ls.clamp(phi, model.solid_sdf, model.empty_sdf)
     return ls.reinitialize(phi)
 
