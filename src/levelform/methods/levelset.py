@@ -20,7 +20,7 @@ from scipy.optimize import brentq
 from ..analysis import PlateSystem
 from ..geometry import domain_polygon, fabrication_report, outline_from_levelset
 from ..grid import build_model, load_path_intact
-from ..levelset import LevelSetGrid, perforated_start
+from ..levelset import LevelSetGrid, cell_fraction, perforated_start
 from ..spec import IterationRecord, Problem, Result
 
 SHRINK, GROW, FLOOR = 0.6, 1.1, 0.1  # step control: on a compliance rise, otherwise, least step
@@ -299,12 +299,26 @@ def _multiplier(phi, ws, vscale, step, target, ls, model) -> float:
     """
     grow, shrink = ls.upwind_norms(phi)
     a = ls.node_active
+    # Only cells near the boundary can change: a node moves by at most step * |grad phi|,
+    # so a cell whose corners all lie farther than that (plus a cell diagonal) from the zero
+    # level keeps its fraction (0 or 1). Evaluate the band only.
+    reach = step * float(max(grow[a].max(initial=0.0), shrink[a].max(initial=0.0))) + 1.5 * ls.h
+    corners = phi.ravel()[ls.cell_nodes]
+    band = np.flatnonzero(np.abs(corners).min(axis=1) <= reach)
+    now = ls.fractions(phi)
+    fixed_sum = float(now.sum() - now[band].sum())
+    band_nodes = np.unique(ls.cell_nodes[band].ravel())
+    n_cells = ls.cell_nodes.shape[0]
+    local = np.searchsorted(band_nodes, ls.cell_nodes[band])
+    flat = lambda arr: arr.ravel()[band_nodes]  # noqa: E731
+    phi_b, ws_b, grow_b, shrink_b = flat(phi), flat(ws), flat(grow), flat(shrink)
+    solid_b, empty_b = flat(model.solid_sdf), flat(model.empty_sdf)
 
     def predicted(lam):
-        v = np.clip((ws - lam) / vscale, -1.0, 1.0) * a
-        trial = phi - step * (np.maximum(v, 0.0) * grow + np.minimum(v, 0.0) * shrink)
-        trial = ls.clamp(trial, model.solid_sdf, model.empty_sdf)
-        return float(ls.fractions(trial).mean()) - target
+        v = np.clip((ws_b - lam) / vscale, -1.0, 1.0)
+        trial = phi_b - step * (np.maximum(v, 0.0) * grow_b + np.minimum(v, 0.0) * shrink_b)
+        trial = np.maximum(np.minimum(trial, solid_b), -empty_b)
+        return (fixed_sum + float(cell_fraction(trial[local]).sum())) / n_cells - target
 
     lo = float(ws[a].min()) - vscale
     hi = float(ws[a].max()) + vscale
