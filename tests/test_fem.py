@@ -25,6 +25,7 @@ from levelform.analysis import PlateSystem
 from levelform.fem import Assembler, DirectSolver, elasticity_matrix, element_stiffness
 from levelform.grid import build_model
 from levelform.levelset import cell_fraction
+from reference import parabolic_end_forces
 from levelform.spec import Domain, Goal, Load, LoadCase, Material, Method, Problem, Support, Units
 
 
@@ -201,23 +202,6 @@ def test_cantilever_field_is_the_timoshenko_goodier_solution():
     # "8.9000e-3" for these data is a value from memory (design notes); the closed form
     # must reproduce it.
     assert cantilever_tip_deflection(**p) == pytest.approx(8.9000e-3, rel=1e-9)
-
-
-def parabolic_end_forces(ys, P, D, t):
-    """Consistent nodal forces of tau(y) = P (c^2 - y^2) / (2 I) on the end nodes ys.
-    The integrand (quadratic traction times linear shape function) is cubic, so 2-point
-    Gauss-Legendre is exact (Gauss rule with n points is exact to degree 2n - 1)."""
-    I = t * D**3 / 12.0
-    c = D / 2
-    f = np.zeros(ys.size)
-    g = np.array([-1.0, 1.0]) / np.sqrt(3.0)
-    a, b = ys[:-1], ys[1:]
-    yq = 0.5 * (a + b)[:, None] + 0.5 * (b - a)[:, None] * g
-    tq = t * P * (c**2 - yq**2) / (2 * I)
-    w = 0.5 * (b - a)[:, None]
-    np.add.at(f, np.arange(a.size), np.sum(w * tq * (b[:, None] - yq) / (b - a)[:, None], axis=1))
-    np.add.at(f, np.arange(a.size) + 1, np.sum(w * tq * (yq - a[:, None]) / (b - a)[:, None], axis=1))
-    return f
 
 
 def cantilever_problem(h):

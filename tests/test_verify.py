@@ -25,6 +25,7 @@ import pytest
 from shapely.geometry import MultiPolygon, Point, Polygon, box
 
 import levelform
+from reference import parabolic_end_forces
 from levelform.analysis import PlateSystem
 from levelform.grid import build_model
 from levelform.spec import (CAUTION, Domain, Goal, Load, LoadCase, Material, Method, Problem,
@@ -75,21 +76,6 @@ def test_plate_with_small_hole_peak_stress_is_three_times_remote():
     # Far from the hole the stress is the remote one (St Venant).
     far = np.hypot(v.points[:, 0] - W / 2, v.points[:, 1] - W / 2) > 0.35 * W
     assert np.allclose(v.von_mises[far], sigma, rtol=0.02)
-
-
-def parabolic_end_forces(ys, P, D, t):
-    """Nodal forces of the parabolic end shear tau = P (c^2 - y^2) / (2 I) on the points ys
-    by linear hat weights; 2-point Gauss-Legendre integrates the cubic integrand exactly."""
-    I, c = t * D**3 / 12.0, D / 2
-    f = np.zeros(ys.size)
-    g = np.array([-1.0, 1.0]) / np.sqrt(3.0)
-    a, b = ys[:-1], ys[1:]
-    yq = 0.5 * (a + b)[:, None] + 0.5 * (b - a)[:, None] * g
-    tq = t * P * (c**2 - yq**2) / (2 * I)
-    w = 0.5 * (b - a)[:, None]
-    np.add.at(f, np.arange(a.size), np.sum(w * tq * (b[:, None] - yq) / (b - a)[:, None], axis=1))
-    np.add.at(f, np.arange(a.size) + 1, np.sum(w * tq * (yq - a[:, None]) / (b - a)[:, None], axis=1))
-    return f
 
 
 def test_end_loaded_cantilever_tip_deflection():
