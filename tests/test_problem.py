@@ -333,7 +333,7 @@ BAD = [
     ("method-name", make(method='[method]\nname = "levelsett"\n'), "method.name",
      "did you mean 'levelset'"),
     ("solver", make(method='[method]\nsolver = "gpu"\n'), "method.solver",
-     '"auto", "direct" or "iterative"'),
+     '"auto", "direct", "pardiso", "multigrid" or "pyamg"'),
     ("volume-step", make(method="[method]\nvolume_step = 0.6\n"), "method.volume_step",
      None),
     ("ersatz", make(method="[method]\nersatz = 1\n"), "method.ersatz", None),

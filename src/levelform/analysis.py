@@ -11,6 +11,7 @@ import numpy as np
 
 from .fem import Assembler, centre_strain_operator, elasticity_matrix, element_stiffness, make_solver
 from .grid import Model
+from .timing import phase
 
 
 @dataclass(frozen=True)
@@ -28,25 +29,37 @@ class PlateSystem:
         self.model = model
         self.E, self.nu, self.t = E, nu, thickness
         self.KE = element_stiffness(E, nu, thickness)
-        self.assembler = Assembler(model.edofs, model.free, model.n_free, self.KE)
-        self.solver = make_solver(model.settings.solver, model.n_free)
+        from .multigrid import GridMultigrid, LatticeAssembler
+
+        try:  # the same matrices as fem.Assembler for a fraction of its memory and set-up time
+            self.assembler = LatticeAssembler(model, self.KE)
+        except ValueError:  # dofs not numbered in grid order
+            self.assembler = Assembler(model.edofs, model.free, model.n_free, self.KE)
+        self.solver = make_solver(model.settings.solver, model.n_free, model=model, KE=self.KE)
+        # The multigrid solver builds its coarse grids from the cell scale factors.
+        self._pass_scale = isinstance(self.solver, GridMultigrid)
         self._last = None
         self.solves = 0
+        self.clock = None  # a timing.PhaseClock to time assembly, solve and energies
 
     def analyse(self, scale: np.ndarray) -> State:
         m = self.model
-        K = self.assembler.matrix(scale)
-        Uf = self.solver.solve(K, m.forces, x0=self._last)
+        with phase(self.clock, "assembly"):
+            K = self.assembler.matrix(scale)
+        extra = {"scale": scale} if self._pass_scale else {}
+        with phase(self.clock, "solve"):
+            Uf = self.solver.solve(K, m.forces, x0=self._last, **extra)
         Uf = Uf.reshape(m.n_free, -1)
         if not np.all(np.isfinite(Uf)):
             raise FloatingPointError("the finite-element solution is not finite")
         self._last = Uf
         self.solves += 1
-        U = np.zeros((m.n_dof, Uf.shape[1]))
-        U[m.free >= 0] = Uf
-        case_c = np.einsum("ic,ic->c", m.forces, Uf)
-        ue = U[m.edofs]  # (n_cells, 8, n_cases)
-        energy = np.einsum("eic,ij,ejc->ec", ue, self.KE, ue)
+        with phase(self.clock, "sensitivity"):
+            U = np.zeros((m.n_dof, Uf.shape[1]))
+            U[m.free >= 0] = Uf
+            case_c = np.einsum("ic,ic->c", m.forces, Uf)
+            ue = U[m.edofs]  # (n_cells, 8, n_cases)
+            energy = np.einsum("eic,ij,ejc->ec", ue, self.KE, ue)
         return State(
             displacement=U,
             case_compliance=case_c,

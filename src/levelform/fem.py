@@ -86,6 +86,7 @@ class DirectSolver:
     """Sparse LU (SuperLU, always available) with a symmetric fill-reducing ordering."""
 
     name = "direct"
+    note = None
 
     def solve(self, K: sp.csc_matrix, F: np.ndarray, x0=None) -> np.ndarray:
         lu = spla.splu(
@@ -97,14 +98,52 @@ class DirectSolver:
         return lu.solve(F)
 
 
-class IterativeSolver:
-    """Conjugate gradients preconditioned by smoothed-aggregation multigrid (pyamg),
-    warm-started from the previous solution. Used for large grids when pyamg is present."""
+class PardisoSolver:
+    """Intel MKL PARDISO through pypardiso (optional: ``pip install levelform[pardiso]``),
+    as a symmetric positive definite solver on the upper triangle. The symbolic analysis
+    (ordering and fill pattern) is done once and reused while the sparsity pattern stays
+    the same, which it does in an optimization: each solve is a numerical factorization
+    and the triangular solves."""
 
-    name = "iterative"
+    name = "pardiso"
+    note = None
+
+    def __init__(self):
+        import pypardiso  # noqa: F401  (ImportError if missing)
+
+        self._solver = pypardiso.PyPardisoSolver(mtype=2)  # real symmetric positive definite
+        self._pattern = None  # (indptr, indices) of the analysed upper triangle
+
+    def solve(self, K: sp.csc_matrix, F: np.ndarray, x0=None) -> np.ndarray:
+        # The upper triangle in CSR is the lower triangle of the symmetric CSC matrix,
+        # read row-wise: no copy of the values beyond the triangle itself.
+        U = sp.triu(sp.csr_matrix(K), format="csr")
+        U.sort_indices()
+        ps = self._solver
+        same = (self._pattern is not None and np.array_equal(self._pattern[0], U.indptr)
+                and np.array_equal(self._pattern[1], U.indices))
+        F2 = np.asfortranarray(np.asarray(F, float).reshape(K.shape[0], -1))
+        ps._check_A(U)
+        if not same:
+            ps.free_memory(everything=True)
+            ps.set_phase(11)
+            ps._call_pardiso(U, F2)
+            self._pattern = (U.indptr.copy(), U.indices.copy())
+        ps.set_phase(23)  # numerical factorization, solve and iterative refinement
+        X = ps._call_pardiso(U, F2)
+        return X.reshape(np.shape(F))
+
+
+class AlgebraicMultigridSolver:
+    """Conjugate gradients preconditioned by smoothed-aggregation algebraic multigrid
+    (pyamg, optional), warm-started from the previous solution; stops at a relative
+    residual of ``rtol``. Kept as an independent check of levelform's own multigrid."""
+
+    name = "pyamg"
+    note = None
 
     def __init__(self, rtol: float = 1e-10, near_null=None):
-        import pyamg  # noqa: F401  (fail early if missing)
+        import pyamg  # noqa: F401  (ImportError if missing)
 
         self.rtol = rtol
         self.near_null = near_null
@@ -125,14 +164,62 @@ class IterativeSolver:
         return X.reshape(F.shape)
 
 
-def make_solver(choice: str, n_free: int):
-    """``auto`` and ``direct`` give SuperLU with a symmetric minimum-degree ordering: on the
-    plate systems measured for docs/method.md it beat SuperLU's default column ordering
-    2.6x at 39k unknowns and algebraic-multigrid CG (pyamg) 30x, so multigrid is used only
-    when asked for (``iterative``) and pyamg is installed; otherwise the direct solver."""
+# Free dofs above which "auto" picks the multigrid solver: measured crossover with SuperLU
+# (MMD ordering) on the benchmark plates, benchmarks/solve.py --crossover; docs/performance.md.
+MULTIGRID_MIN_FREE = 50_000
+# Multigrid stopping rule inside an optimization (docs/performance.md, tolerance study):
+# relative residual, and estimated compliance error relative to the compliance.
+MULTIGRID_RTOL, MULTIGRID_CTOL = 1e-4, 1e-7
+MULTIGRID_COARSE_SIZE = 50_000  # free dofs at which coarsening stops
+
+
+def optional_solver_available(name: str) -> bool:
+    """Whether the optional solver ``pardiso`` or ``pyamg`` can be made here."""
+    try:
+        {"pardiso": PardisoSolver, "pyamg": AlgebraicMultigridSolver}[name]()
+    except (ImportError, OSError):  # not installed, or MKL's shared library not loadable
+        return False
+    return True
+
+
+def make_solver(choice: str, n_free: int, model=None, KE=None):
+    """The linear solver for a plate system of ``n_free`` unknowns; its ``note`` says why
+    it differs from the one asked for (an optional library missing), else is None.
+
+    ``direct``: SuperLU with a symmetric minimum-degree ordering (always there).
+    ``pardiso``: MKL PARDISO, symbolic analysis once (optional; else ``direct``).
+    ``multigrid`` (old name ``iterative``): conjugate gradients with levelform's geometric
+    multigrid preconditioner, which needs the grid ``model`` and the solid element matrix
+    ``KE`` (without them: ``direct``). ``pyamg``: CG with pyamg's algebraic multigrid
+    (optional; else ``multigrid``). ``auto``: below MULTIGRID_MIN_FREE unknowns PARDISO if
+    installed, else SuperLU; from there on multigrid, which is faster and needs a
+    fraction of a factorization's memory (docs/performance.md)."""
+    note = None
     if choice == "iterative":
+        choice = "multigrid"
+    if choice == "auto":
+        if n_free >= MULTIGRID_MIN_FREE and model is not None and KE is not None:
+            choice = "multigrid"
+        else:
+            choice = "pardiso" if optional_solver_available("pardiso") else "direct"
+    if choice == "pardiso":
         try:
-            return IterativeSolver()
+            return PardisoSolver()
+        except (ImportError, OSError) as exc:
+            note = f"solver 'pardiso' is not available ({exc}); using 'direct'"
+            choice = "direct"
+    if choice == "pyamg":
+        try:
+            return AlgebraicMultigridSolver()
         except ImportError:
-            return DirectSolver()
-    return DirectSolver()
+            note = "solver 'pyamg' is not installed; using 'multigrid'"
+            choice = "multigrid"
+    if choice == "multigrid" and model is not None and KE is not None:
+        from .multigrid import GridMultigrid
+
+        solver = GridMultigrid(model, KE, rtol=MULTIGRID_RTOL, ctol=MULTIGRID_CTOL, coarse_size=MULTIGRID_COARSE_SIZE)
+        solver.note = note
+        return solver
+    solver = DirectSolver()
+    solver.note = note
+    return solver

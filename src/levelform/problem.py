@@ -47,7 +47,8 @@ __all__ = ["load_problem", "parse_problem", "METHOD_NAMES", "SOLVERS"]
 # Adding an optimization method to the accepted names is one entry here.
 METHOD_NAMES = ("levelset", "density", "evolutionary")
 FILTERS = ("density", "sensitivity")
-SOLVERS = ("auto", "direct", "iterative")
+SOLVERS = ("auto", "direct", "pardiso", "multigrid", "pyamg")
+SOLVER_ALIASES = {"iterative": "multigrid"}  # an earlier name, still read
 FIXES = ("x", "y", "xy")
 KEEPS = ("solid", "empty")
 MAX_ITERATIONS = 100_000
@@ -862,7 +863,8 @@ def _parse_method(data, units, errs):
     if "name" in t:
         keep("name", _choice(t["name"], "method.name", errs, METHOD_NAMES, "a method name"))
     if "solver" in t:
-        keep("solver", _choice(t["solver"], "method.solver", errs, SOLVERS, "a solver"))
+        v = SOLVER_ALIASES.get(t["solver"], t["solver"]) if isinstance(t["solver"], str) else t["solver"]
+        keep("solver", _choice(v, "method.solver", errs, SOLVERS, "a solver"))
     if "iterations" in t:
         v = t["iterations"]
         if isinstance(v, int) and not isinstance(v, bool) and 1 <= v <= MAX_ITERATIONS:

@@ -22,6 +22,7 @@ from ..geometry import domain_polygon, fabrication_report, outline_from_levelset
 from ..grid import build_model, load_path_intact
 from ..levelset import LevelSetGrid, cell_fraction, perforated_start
 from ..spec import IterationRecord, Problem, Result
+from ..timing import phase
 
 SHRINK, GROW, FLOOR = 0.6, 1.1, 0.1  # step control: on a compliance rise, otherwise, least step
 CONVERGE_TOL, CONVERGE_WINDOW = 1e-3, 5
@@ -132,11 +133,12 @@ class _Loop:
         )
 
 
-def run(problem: Problem, progress=None, checkpoint=None) -> Result:
+def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
     """Optimize ``problem``. ``progress(record)`` is called after every analysis;
     ``checkpoint`` (optional) has ``load() -> dict | None`` and ``save(dict)`` and is used to
     resume and to save the loop state every CHECKPOINT_EVERY iterations. Ctrl-C returns the
-    last analysed design with status "interrupted"."""
+    last analysed design with status "interrupted". ``clock`` (a timing.PhaseClock, for
+    benchmarks) receives the time of each part of every iteration."""
     t_start = time.perf_counter()
     model = build_model(problem)
     st = model.settings
@@ -144,6 +146,7 @@ def run(problem: Problem, progress=None, checkpoint=None) -> Result:
     h = g.h
     mat = problem.material
     system = PlateSystem(model, mat.E, mat.nu, mat.thickness)
+    system.clock = clock
     ls = LevelSetGrid(model.node_active, model.cell_nodes, h, st.smoothing)
     X, Y = model.node_xy()
     goal = problem.goal.material
@@ -167,15 +170,18 @@ def run(problem: Problem, progress=None, checkpoint=None) -> Result:
         while S.it <= st.iterations:
             it = S.it
             if checkpoint is not None and (it - 1) % CHECKPOINT_EVERY == 0 and it > 1:
-                checkpoint.save(S.to_arrays())
-            frac = ls.fractions(S.phi)
-            scale = st.ersatz + (1.0 - st.ersatz) * ls.stiffness_fractions(S.phi)
+                with phase(clock, "checkpoint"):
+                    checkpoint.save(S.to_arrays())
+            with phase(clock, "fractions"):
+                frac = ls.fractions(S.phi)
+                scale = st.ersatz + (1.0 - st.ersatz) * ls.stiffness_fractions(S.phi)
             try:
                 state = system.analyse(scale)
             except FloatingPointError as exc:
                 status = f"numerical failure: {exc}"
                 break
-            intact = load_path_intact(model, S.phi)
+            with phase(clock, "load path"):
+                intact = load_path_intact(model, S.phi)
             S.cut = 0 if intact else S.cut + 1
             best = (S.phi.copy(), frac, state)
             c = state.compliance
@@ -211,8 +217,10 @@ def run(problem: Problem, progress=None, checkpoint=None) -> Result:
                 break
             if it == st.iterations:
                 break
-            _update(S, state, frac, scale, it, model, ls, system, st, goal, morph, fab, hole_radius, X, Y)
+            _update(S, state, frac, scale, it, model, ls, system, st, goal, morph, fab, hole_radius, X, Y, clock)
             S.it += 1
+            if clock is not None:
+                clock.tick()
     except KeyboardInterrupt:
         if best is None:
             raise
@@ -249,7 +257,7 @@ def run(problem: Problem, progress=None, checkpoint=None) -> Result:
     )
 
 
-def _update(S, state, frac, scale, it, model, ls, system, st, goal, morph, fab, hole_radius, X, Y):
+def _update(S, state, frac, scale, it, model, ls, system, st, goal, morph, fab, hole_radius, X, Y, clock=None):
     """Move the design of iteration ``it`` to the next one (in place on ``S``)."""
     a = model.node_active
     h = ls.h
@@ -260,14 +268,36 @@ def _update(S, state, frac, scale, it, model, ls, system, st, goal, morph, fab, 
     if S.goal_reached_at < 0 and abs(S.target - goal) < 1e-12:
         S.goal_reached_at = it
 
-    ws = ls.smooth_cells(system.energy_density(state) * scale)
-    band = a & (np.abs(phi) <= 2.0 * h)
-    vals = ws[band] if band.any() else ws[a]
-    vscale = float(np.percentile(vals, 95)) or float(ws[a].max()) or 1.0
-
-    lam = _multiplier(phi, ws, vscale, S.step, S.target + S.lost, ls, model)
+    with phase(clock, "sensitivity"):
+        density = system.energy_density(state) * scale
+    with phase(clock, "smoothing"):
+        ws = ls.smooth_cells(density)
+    with phase(clock, "volume control"):
+        band = a & (np.abs(phi) <= 2.0 * h)
+        vals = ws[band] if band.any() else ws[a]
+        vscale = float(np.percentile(vals, 95)) or float(ws[a].max()) or 1.0
+        lam = _multiplier(phi, ws, vscale, S.step, S.target + S.lost, ls, model)
     seeding_open = S.goal_reached_at < 0 or it <= min(S.goal_reached_at + 10, st.iterations // 2)
     if st.seed_holes and seeding_open and it - S.last_seed >= SEED_EVERY and it >= SEED_EVERY:
+        phi, lam = _seed_step(S, state, frac, it, model, ls, system, st, hole_radius, X, Y, ws, vscale, phi, lam,
+                              clock)
+    with phase(clock, "update"):
+        speed = np.clip((ws - lam) / vscale, -1.0, 1.0)
+        phi = ls.clamp(ls.advect(phi, speed, S.step), model.solid_sdf, model.empty_sdf)
+    with phase(clock, "reinitialization"):
+        phi = ls.reinitialize(phi)
+    if morph and S.goal_reached_at >= 0 and it >= S.goal_reached_at + MORPH_AFTER:
+        with phase(clock, "fabrication filter"):
+            before = float(ls.fractions(phi).mean())
+            phi = _fabrication_filter(phi, ls, model, fab)
+            S.lost = before - float(ls.fractions(phi).mean())
+    S.prev_frac = frac
+    S.phi = phi
+
+
+def _seed_step(S, state, frac, it, model, ls, system, st, hole_radius, X, Y, ws, vscale, phi, lam, clock):
+    """Open new holes where the topological derivative says so; returns (phi, multiplier)."""
+    with phase(clock, "hole seeding"):
         g_nodes = ls.smooth_cells(system.hole_sensitivity(state))
         # Compliance cost per unit area of removing material at the boundary: the mean
         # solid energy density over the cut cells (to first order the volume multiplier).
@@ -278,16 +308,7 @@ def _update(S, state, frac, scale, it, model, ls, system, st, goal, morph, fab, 
             phi = ls.reinitialize(ls.clamp(phi_s, model.solid_sdf, model.empty_sdf))
             S.last_seed = it
             lam = _multiplier(phi, ws, vscale, S.step, S.target + S.lost, ls, model)
-
-    speed = np.clip((ws - lam) / vscale, -1.0, 1.0)
-    phi = ls.advect(phi, speed, S.step)
-    phi = ls.reinitialize(ls.clamp(phi, model.solid_sdf, model.empty_sdf))
-    if morph and S.goal_reached_at >= 0 and it >= S.goal_reached_at + MORPH_AFTER:
-        before = float(ls.fractions(phi).mean())
-        phi = _fabrication_filter(phi, ls, model, fab)
-        S.lost = before - float(ls.fractions(phi).mean())
-    S.prev_frac = frac
-    S.phi = phi
+    return phi, lam
 
 
 def _multiplier(phi, ws, vscale, step, target, ls, model) -> float:
