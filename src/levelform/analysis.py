@@ -23,9 +23,10 @@ class State:
 
 
 class PlateSystem:
-    """Assembles and solves the plate on ``model`` for a cell stiffness scale."""
+    """Assembles and solves the plate on ``model`` for a cell stiffness scale; ``precise``
+    holds an iterative solver to a tight residual (fem.make_solver)."""
 
-    def __init__(self, model: Model, E: float, nu: float, thickness: float):
+    def __init__(self, model: Model, E: float, nu: float, thickness: float, precise: bool = False):
         self.model = model
         self.E, self.nu, self.t = E, nu, thickness
         self.KE = element_stiffness(E, nu, thickness)
@@ -35,9 +36,10 @@ class PlateSystem:
             self.assembler = LatticeAssembler(model, self.KE)
         except ValueError:  # dofs not numbered in grid order
             self.assembler = Assembler(model.edofs, model.free, model.n_free, self.KE)
-        self.solver = make_solver(model.settings.solver, model.n_free, model=model, KE=self.KE)
+        self.solver = make_solver(model.settings.solver, model.n_free, model=model, KE=self.KE, precise=precise)
         # The multigrid solver builds its coarse grids from the cell scale factors.
         self._pass_scale = isinstance(self.solver, GridMultigrid)
+        self._reuse = isinstance(self.assembler, LatticeAssembler)
         self._last = None
         self.solves = 0
         self.clock = None  # a timing.PhaseClock to time assembly, solve and energies
@@ -45,7 +47,8 @@ class PlateSystem:
     def analyse(self, scale: np.ndarray) -> State:
         m = self.model
         with phase(self.clock, "assembly"):
-            K = self.assembler.matrix(scale)
+            # the matrix is not kept past this analysis, so its storage is reused
+            K = self.assembler.matrix(scale, reuse=True) if self._reuse else self.assembler.matrix(scale)
         extra = {"scale": scale} if self._pass_scale else {}
         with phase(self.clock, "solve"):
             Uf = self.solver.solve(K, m.forces, x0=self._last, **extra)

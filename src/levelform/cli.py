@@ -152,10 +152,13 @@ def _solve_and_export(problem, outdir: Path, quiet: bool, overwrite: bool, resum
         f"  material fraction  {result.material_fraction:.4f} (goal {problem.goal.material:.4f})\n"
         f"  outline area       {result.outline.area:.6g} {u.length}^2, "
         f"{sum(len(p.interiors) for p in getattr(result.outline, 'geoms', [])):d} holes\n"
-        f"  results in         {outdir}{os.sep} ({', '.join(sorted(k for k in files if not k.startswith('_')))})"
+        + (f"  linear solver      {result.settings['solver_used']}\n" if "solver_used" in result.settings else "")
+        + f"  results in         {outdir}{os.sep} ({', '.join(sorted(k for k in files if not k.startswith('_')))})"
         f"\n\nCaution: {CAUTION}",
         flush=True,
     )
+    if result.settings.get("solver_note"):
+        print(f"note: {result.settings['solver_note']}", file=sys.stderr)
     if interrupted:
         print(f"interrupted: the current design is written; continue with --resume", file=sys.stderr)
         return EXIT_INTERRUPTED

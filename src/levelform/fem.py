@@ -171,6 +171,7 @@ MULTIGRID_MIN_FREE = 50_000
 # relative residual, and estimated compliance error relative to the compliance.
 MULTIGRID_RTOL, MULTIGRID_CTOL = 1e-4, 1e-7
 MULTIGRID_COARSE_SIZE = 50_000  # free dofs at which coarsening stops
+PRECISE_RTOL = 1e-10  # relative residual of a one-off precise analysis
 
 
 def optional_solver_available(name: str) -> bool:
@@ -182,7 +183,7 @@ def optional_solver_available(name: str) -> bool:
     return True
 
 
-def make_solver(choice: str, n_free: int, model=None, KE=None):
+def make_solver(choice: str, n_free: int, model=None, KE=None, precise: bool = False):
     """The linear solver for a plate system of ``n_free`` unknowns; its ``note`` says why
     it differs from the one asked for (an optional library missing), else is None.
 
@@ -193,7 +194,9 @@ def make_solver(choice: str, n_free: int, model=None, KE=None):
     ``KE`` (without them: ``direct``). ``pyamg``: CG with pyamg's algebraic multigrid
     (optional; else ``multigrid``). ``auto``: below MULTIGRID_MIN_FREE unknowns PARDISO if
     installed, else SuperLU; from there on multigrid, which is faster and needs a
-    fraction of a factorization's memory (docs/performance.md)."""
+    fraction of a factorization's memory (docs/performance.md). ``precise``: the iterative
+    solvers stop at a relative residual of PRECISE_RTOL instead of the optimization's
+    looser rule (for the one-off analyses that compare or check designs)."""
     note = None
     if choice == "iterative":
         choice = "multigrid"
@@ -217,7 +220,8 @@ def make_solver(choice: str, n_free: int, model=None, KE=None):
     if choice == "multigrid" and model is not None and KE is not None:
         from .multigrid import GridMultigrid
 
-        solver = GridMultigrid(model, KE, rtol=MULTIGRID_RTOL, ctol=MULTIGRID_CTOL, coarse_size=MULTIGRID_COARSE_SIZE)
+        rtol, ctol = (PRECISE_RTOL, 0.0) if precise else (MULTIGRID_RTOL, MULTIGRID_CTOL)
+        solver = GridMultigrid(model, KE, rtol=rtol, ctol=ctol, coarse_size=MULTIGRID_COARSE_SIZE)
         solver.note = note
         return solver
     solver = DirectSolver()

@@ -83,6 +83,31 @@ def _cut_cell_fraction(p: np.ndarray) -> np.ndarray:
     return np.clip(area, 0.0, 1.0)
 
 
+# Coarse cells that the Helmholtz smoothing length must span when the filter runs on a
+# coarsened grid (LevelSetGrid._build_smoother).
+SMOOTH_CELLS_PER_LENGTH = 16.0
+
+
+def _helmholtz(active_flat: np.ndarray, cell_nodes: np.ndarray, h: float, r: float):
+    """Factorized (r^2 K + M) on the active nodes of a grid with square cells of size h,
+    the map from a cell-wise constant field to its load vector M v, and the nodal areas."""
+    number = np.full(active_flat.size, -1, np.int64)
+    number[active_flat] = np.arange(int(active_flat.sum()))
+    cn = number[cell_nodes]  # (n_cells, 4)
+    KL = np.array([[4, -1, -2, -1], [-1, 4, -1, -2], [-2, -1, 4, -1], [-1, -2, -1, 4]]) / 6.0
+    ML = np.array([[4, 2, 1, 2], [2, 4, 2, 1], [1, 2, 4, 2], [2, 1, 2, 4]]) * (h**2 / 36.0)
+    AE = r * r * KL + ML
+    rows = np.repeat(cn, 4, axis=1).ravel()
+    cols = np.tile(cn, (1, 4)).ravel()
+    n = int(active_flat.sum())
+    A = sp.csc_matrix((np.tile(AE.ravel(), cn.shape[0]), (rows, cols)), shape=(n, n))
+    lu = spla.splu(A, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0, options={"SymmetricMode": True})
+    # Right-hand side of a cell-wise constant field: h^2 / 4 of each cell to each corner.
+    ones = np.full(cn.size, h**2 / 4.0)
+    cell_to_node = sp.csr_matrix((ones, (cn.ravel(), np.repeat(np.arange(cn.shape[0]), 4))), shape=(n, cn.shape[0]))
+    return lu, cell_to_node, np.asarray(cell_to_node.sum(axis=1)).ravel()
+
+
 class LevelSetGrid:
     """Difference, smoothing and reinitialization operators on the active nodes."""
 
@@ -142,18 +167,61 @@ class LevelSetGrid:
 
     def advect(self, phi: np.ndarray, speed: np.ndarray, travel: float, cfl: float = 0.5) -> np.ndarray:
         """Solve phi_t + V |grad phi| = 0 (first-order upwind) until the boundary has moved
-        ``travel`` (a length) where |V| = 1; sub-steps keep dt |V|max / h <= cfl."""
-        vmax = float(np.max(np.abs(speed[self.node_active]), initial=0.0))
+        ``travel`` (a length) where |V| = 1; sub-steps keep dt |V|max / h <= cfl.
+
+        The same arithmetic as upwind_norms, in the same order (so the same numbers to the
+        last bit), but each one-sided difference is formed once per sub-step and every
+        temporary lives in a work array: on fine grids this loop runs tens of sub-steps."""
+        a = self.node_active
+        vmax = float(np.max(np.abs(speed[a]), initial=0.0))
         if travel <= 0.0 or vmax == 0.0:
             return phi.copy()
         n_sub = max(1, int(np.ceil(travel * vmax / (cfl * self.h))))
         dt = travel / n_sub
-        vp = np.maximum(speed, 0.0) * self.node_active
-        vm = np.minimum(speed, 0.0) * self.node_active
+        vp = np.maximum(speed, 0.0) * a
+        vm = np.minimum(speed, 0.0) * a
+        pair_x = (a[:, 1:] & a[:, :-1]).astype(float)  # both ends present: has_xp[:, :-1]
+        pair_y = (a[1:, :] & a[:-1, :]).astype(float)
+        ny, nx = self.shape
         out = phi.copy()
+        dx, px, nx_ = (np.empty((ny, nx - 1)) for _ in range(3))
+        dy, py, ny_ = (np.empty((ny - 1, nx)) for _ in range(3))
+        grow, shrink, t = (np.empty((ny, nx)) for _ in range(3))
         for _ in range(n_sub):
-            grow, shrink = self.upwind_norms(out)
-            out -= dt * (vp * grow + vm * shrink)
+            # one-sided differences times "both present" (zero at the domain edge)
+            np.subtract(out[:, 1:], out[:, :-1], out=dx)
+            np.divide(dx, self.h, out=dx)
+            dx *= pair_x
+            np.subtract(out[1:, :], out[:-1, :], out=dy)
+            np.divide(dy, self.h, out=dy)
+            dy *= pair_y
+            np.maximum(dx, 0.0, out=px)
+            px *= px
+            np.minimum(dx, 0.0, out=nx_)
+            nx_ *= nx_
+            np.maximum(dy, 0.0, out=py)
+            py *= py
+            np.minimum(dy, 0.0, out=ny_)
+            ny_ *= ny_
+            # grow^2 = max(dxm,0)^2 + min(dxp,0)^2 + max(dym,0)^2 + min(dyp,0)^2, summed in
+            # that order; dxm at column j is dx[:, j - 1] (0 at j = 0), dxp is dx[:, j].
+            grow[:, 0] = 0.0
+            grow[:, 1:] = px
+            grow[:, :-1] += nx_
+            grow[1:, :] += py
+            grow[:-1, :] += ny_
+            shrink[:, 0] = 0.0
+            shrink[:, 1:] = nx_
+            shrink[:, :-1] += px
+            shrink[1:, :] += ny_
+            shrink[:-1, :] += py
+            np.sqrt(grow, out=grow)
+            np.sqrt(shrink, out=shrink)
+            grow *= vp
+            np.multiply(vm, shrink, out=t)
+            grow += t
+            grow *= dt
+            out -= grow
         return out
 
     def reinitialize(self, phi: np.ndarray) -> np.ndarray:
@@ -171,29 +239,73 @@ class LevelSetGrid:
 
     # -- smoothing ------------------------------------------------------------------
     def _build_smoother(self, r: float):
-        """(r^2 K + M) v_s = M v on the active nodes with Q4 elements (natural boundary
-        condition at the domain edge): a Helmholtz filter with length r. Factorized once."""
+        """(r^2 K + M) v_s = M v with Q4 elements (natural boundary condition at the domain
+        edge): a Helmholtz filter with length r, factorized once.
+
+        When r spans many cells (r >= 2 SMOOTH_CELLS_PER_LENGTH h) the filter is solved on
+        a grid coarsened c x c (c a power of two, so that r still spans at least
+        SMOOTH_CELLS_PER_LENGTH coarse cells): the cell field is averaged onto the coarse
+        cells, filtered there and interpolated bilinearly back to the nodes. The filtered
+        field varies on the length r, so the coarse grid resolves it (difference to the
+        fine filter measured in docs/performance.md); the factorization of a million-node
+        operator, the largest part of the set-up and of its memory, is avoided."""
+        c = 1
+        while r / (2 * c * self.h) >= SMOOTH_CELLS_PER_LENGTH:
+            c *= 2
+        self.smoothing_coarsening = c
         active_flat = self.node_active.ravel()
-        number = np.full(active_flat.size, -1, np.int64)
-        number[active_flat] = np.arange(int(active_flat.sum()))
-        self._number = number
-        cn = number[self.cell_nodes]  # (n_cells, 4)
-        KL = np.array([[4, -1, -2, -1], [-1, 4, -1, -2], [-2, -1, 4, -1], [-1, -2, -1, 4]]) / 6.0
-        ML = np.array([[4, 2, 1, 2], [2, 4, 2, 1], [1, 2, 4, 2], [2, 1, 2, 4]]) * (self.h**2 / 36.0)
-        AE = r * r * KL + ML
-        rows = np.repeat(cn, 4, axis=1).ravel()
-        cols = np.tile(cn, (1, 4)).ravel()
-        n = int(active_flat.sum())
-        A = sp.csc_matrix((np.tile(AE.ravel(), cn.shape[0]), (rows, cols)), shape=(n, n))
-        self._smooth_lu = spla.splu(A, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0, options={"SymmetricMode": True})
-        # Right-hand side of a cell-wise constant field: h^2 / 4 of each cell to each corner.
-        ones = np.full(cn.size, self.h**2 / 4.0)
-        self._cell_to_node = sp.csr_matrix((ones, (cn.ravel(), np.repeat(np.arange(cn.shape[0]), 4))), shape=(n, cn.shape[0]))
-        self.node_area = np.asarray(self._cell_to_node.sum(axis=1)).ravel()
+        n_nodes = int(active_flat.sum())
+        if c == 1:
+            self._smooth_lu, self._cell_to_node, self.node_area = _helmholtz(active_flat, self.cell_nodes, self.h, r)
+            self._restrict = self._prolong = None
+            return
+        ny1, nx1 = self.shape
+        ny, nx = ny1 - 1, nx1 - 1
+        j, i = np.divmod(self.cell_nodes[:, 0], nx1)  # each cell's lower-left node
+        NY, NX = -(-ny // c), -(-nx // c)
+        parent = (j // c) * NX + (i // c)
+        present, coarse_of = np.unique(parent, return_inverse=True)
+        n_coarse = present.size
+        counts = np.bincount(coarse_of, minlength=n_coarse).astype(float)
+        self._restrict = sp.csr_matrix((1.0 / counts[coarse_of], (coarse_of, np.arange(parent.size))),
+                                       shape=(n_coarse, parent.size))  # mean over present children
+        J, I = np.divmod(present, NX)
+        base = J * (NX + 1) + I
+        coarse_nodes = np.stack([base, base + 1, base + NX + 2, base + NX + 1], axis=1)
+        coarse_active = np.zeros((NY + 1) * (NX + 1), bool)
+        coarse_active[coarse_nodes.ravel()] = True
+        self._smooth_lu, self._cell_to_node, _ = _helmholtz(coarse_active, coarse_nodes, c * self.h, r)
+        # bilinear interpolation from the coarse nodes to every active fine node
+        number = np.full(coarse_active.size, -1, np.int64)
+        number[coarse_active] = np.arange(int(coarse_active.sum()))
+        fj, fi = np.divmod(np.flatnonzero(active_flat), nx1)
+        J0, I0 = np.minimum(fj // c, NY - 1), np.minimum(fi // c, NX - 1)
+        ty, tx = fj / c - J0, fi / c - I0
+        rows, cols, vals = [], [], []
+        for dj, wy in ((0, 1.0 - ty), (1, ty)):
+            for di, wx in ((0, 1.0 - tx), (1, tx)):
+                w = wy * wx
+                keep = w > 0.0
+                col = number[(J0 + dj)[keep] * (NX + 1) + (I0 + di)[keep]]
+                if np.any(col < 0):
+                    raise AssertionError("a fine node interpolates from a missing coarse node")
+                rows.append(np.flatnonzero(keep))
+                cols.append(col)
+                vals.append(w[keep])
+        self._prolong = sp.csr_matrix((np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))),
+                                      shape=(n_nodes, number.max() + 1))
+        cn = np.flatnonzero(active_flat)
+        local = np.full(active_flat.size, -1, np.int64)
+        local[cn] = np.arange(n_nodes)
+        fine = local[self.cell_nodes]
+        self.node_area = np.bincount(fine.ravel(), minlength=n_nodes) * (self.h**2 / 4.0)
 
     def smooth_cells(self, cell_values: np.ndarray) -> np.ndarray:
         """Helmholtz-smoothed nodal field of a cell-wise constant field; 0 outside."""
-        v = self._smooth_lu.solve(self._cell_to_node @ cell_values)
+        if self._restrict is None:
+            v = self._smooth_lu.solve(self._cell_to_node @ cell_values)
+        else:
+            v = self._prolong @ self._smooth_lu.solve(self._cell_to_node @ (self._restrict @ cell_values))
         out = np.zeros(self.shape)
         out[self.node_active] = v
         return out

@@ -127,8 +127,8 @@ class LatticeAssembly:
         counts = np.count_nonzero(mask, axis=2)[col_free >= 0]
         self.indptr = np.concatenate([[0], np.cumsum(counts)]).astype(np.int32)
         self.indices = np.broadcast_to(row_free[:, None, :], mask.shape)[mask].astype(np.int32)
-        # Positions of the kept entries in the (n_nodes, 36) block; int64, which numpy's
-        # take handles several times faster than a boolean mask or int32 positions.
+        # Positions of the kept entries in the (n_nodes, 36) block, int64. Fancy indexing
+        # with them measured 10x faster than np.take here (numpy 2.x, 46M entries).
         self.keep = np.flatnonzero(mask.ravel())
         self.around = around
         # Entry (column (n, q), row slot 2k + p) of cell m is cell-matrix entry
@@ -152,15 +152,24 @@ class LatticeAssembly:
             self._block = np.empty((self.around.shape[0], 36))
         return self._block
 
-    def _matrix(self, full: np.ndarray) -> sp.csc_matrix:
-        data = np.take(full.reshape(-1), self.keep)
-        return sp.csc_matrix((data, self.indices, self.indptr), shape=(self.n, self.n))
+    def _matrix(self, full: np.ndarray, reuse: bool = False) -> sp.csc_matrix:
+        flat = full.reshape(-1)
+        if reuse:  # into the previous matrix's data array: no fresh pages to fault in
+            if getattr(self, "_data", None) is None:
+                self._data = np.empty(self.keep.size)
+            data = np.take(flat, self.keep, out=self._data)
+        else:
+            data = flat[self.keep]
+        K = sp.csc_matrix((data, self.indices, self.indptr), shape=(self.n, self.n), copy=False)
+        K.has_sorted_indices = True  # rows come in neighbour order, which is sorted
+        return K
 
-    def from_scale(self, scale: np.ndarray, KE: np.ndarray) -> sp.csc_matrix:
-        """sum_e scale_e KE over the level's cells (one 8 x 8 matrix for all cells)."""
+    def from_scale(self, scale: np.ndarray, KE: np.ndarray, reuse: bool = False) -> sp.csc_matrix:
+        """sum_e scale_e KE over the level's cells (one 8 x 8 matrix for all cells).
+        ``reuse``: write into the matrix the last such call returned (which then changes)."""
         tab = np.append(np.asarray(KE, float).ravel(), 0.0)[self.table]  # (4, 36)
         s = np.append(np.asarray(scale, float), 0.0)
-        return self._matrix(np.matmul(s[self.around], tab, out=self._work()))
+        return self._matrix(np.matmul(s[self.around], tab, out=self._work()), reuse)
 
     def from_cells(self, Ke: np.ndarray) -> sp.csc_matrix:
         """sum_e K_e for per-cell matrices ``Ke`` (n_cells, 64), row-major 8 x 8."""
@@ -203,8 +212,11 @@ class LatticeAssembler:
         self.assembly = LatticeAssembly(self.lattice)
         self.n = model.n_free
 
-    def matrix(self, scale: np.ndarray) -> sp.csc_matrix:
-        return self.assembly.from_scale(scale, self.KE)
+    def matrix(self, scale: np.ndarray, reuse: bool = False) -> sp.csc_matrix:
+        """The free-dof stiffness for the cell scale factors; with ``reuse`` it is written
+        into the matrix the previous ``reuse`` call returned (for a loop that does not
+        keep the old matrix: saves the page faults of a fresh array on big grids)."""
+        return self.assembly.from_scale(scale, self.KE, reuse)
 
 
 # ---- coarsening -------------------------------------------------------------------------
@@ -595,6 +607,8 @@ class GridMultigrid:
                 its.append(k)
                 res.append(rel)
         except NotConverged as exc:
+            if K.shape[0] > DIRECT_FALLBACK_MAX:  # a factorization this big may not fit in memory
+                raise NotConverged(f"{exc}; too large ({K.shape[0]:,} unknowns) to solve directly instead") from None
             warnings.warn(f"{exc}; solving directly instead", RuntimeWarning, stacklevel=2)
             lu = spla.splu(sp.csc_matrix(K), permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0,
                            options={"SymmetricMode": True})
@@ -608,8 +622,14 @@ class GridMultigrid:
         return X.reshape(np.shape(F))
 
 
-class NotConverged(ArithmeticError):
-    """Conjugate gradients stopped at the iteration limit."""
+class NotConverged(FloatingPointError):
+    """Conjugate gradients stopped at the iteration limit (an optimization loop reports it
+    as a numerical failure, as any FloatingPointError)."""
+
+
+# Largest system that the direct solver takes over when CG fails: SuperLU needs about
+# 3 GB there (benchmarks/solve.py); at 2.5M unknowns it needed 15 GB and 5 minutes.
+DIRECT_FALLBACK_MAX = 700_000
 
 
 def pcg(A, b: np.ndarray, M, rtol: float, maxiter: int, x0=None, ctol: float = 0.0):

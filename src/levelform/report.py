@@ -165,8 +165,9 @@ outline (for the density-based and evolutionary methods: the boundary drawn thro
 cell densities). Every outline was then analysed by one and the same linear plane-stress
 analysis: square cells of {_fmt(ev["grid_cell"], 6)} {escape(u.length)} (the problem's cell
 divided by {int(ev["refine"])}), each cell's stiffness scaled by the exact share of its area
-that the outline covers, with void at a stiffness ratio of {_fmt(ev["ersatz"], 3)}, one direct
-solve for all load cases. The crisp compliance in the table is the weighted sum of the load
+that the outline covers, with void at a stiffness ratio of {_fmt(ev["ersatz"], 3)}, one solve for
+all load cases (solver: {escape(str(ev.get("solver", "direct")))}, held to a relative residual of 1e-10
+where iterative). The crisp compliance in the table is the weighted sum of the load
 cases' compliances from that analysis; a lower value is a stiffer design. Compare
 compliances only together with the material fractions: a design with more material is
 stiffer for that reason alone.</p>{_bodyfitted_paragraph(comparison)}

@@ -236,7 +236,8 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
     outline = outline_from_levelset(phi_out, g, domain)
     dens = np.full(g.ny * g.nx, np.nan)
     dens[model.cells] = frac
-    settings = {"method": "levelset", "goal_material": goal, **st.as_dict(), "solver_used": system.solver.name}
+    settings = {"method": "levelset", "goal_material": goal, **st.as_dict(), "solver_used": system.solver.name,
+                **({"solver_note": system.solver.note} if system.solver.note else {})}
     return Result(
         problem=problem,
         method="levelset",
@@ -276,7 +277,7 @@ def _update(S, state, frac, scale, it, model, ls, system, st, goal, morph, fab, 
         band = a & (np.abs(phi) <= 2.0 * h)
         vals = ws[band] if band.any() else ws[a]
         vscale = float(np.percentile(vals, 95)) or float(ws[a].max()) or 1.0
-        lam = _multiplier(phi, ws, vscale, S.step, S.target + S.lost, ls, model)
+        lam = _multiplier(phi, ws, vscale, S.step, S.target + S.lost, ls, model, now=frac)
     seeding_open = S.goal_reached_at < 0 or it <= min(S.goal_reached_at + 10, st.iterations // 2)
     if st.seed_holes and seeding_open and it - S.last_seed >= SEED_EVERY and it >= SEED_EVERY:
         phi, lam = _seed_step(S, state, frac, it, model, ls, system, st, hole_radius, X, Y, ws, vscale, phi, lam,
@@ -311,7 +312,7 @@ def _seed_step(S, state, frac, it, model, ls, system, st, hole_radius, X, Y, ws,
     return phi, lam
 
 
-def _multiplier(phi, ws, vscale, step, target, ls, model) -> float:
+def _multiplier(phi, ws, vscale, step, target, ls, model, now=None) -> float:
     """Volume multiplier whose one-step (linearized) update lands on the target fraction.
 
     The predicted volume is monotone in the multiplier (the speed is clipped and the
@@ -326,11 +327,16 @@ def _multiplier(phi, ws, vscale, step, target, ls, model) -> float:
     reach = step * float(max(grow[a].max(initial=0.0), shrink[a].max(initial=0.0))) + 1.5 * ls.h
     corners = phi.ravel()[ls.cell_nodes]
     band = np.flatnonzero(np.abs(corners).min(axis=1) <= reach)
-    now = ls.fractions(phi)
+    now = ls.fractions(phi) if now is None else now  # cell fractions of phi, if known
     fixed_sum = float(now.sum() - now[band].sum())
-    band_nodes = np.unique(ls.cell_nodes[band].ravel())
+    band_corners = ls.cell_nodes[band]
+    mark = np.zeros(phi.size, bool)  # sorted unique nodes of the band by marking, not sorting
+    mark[band_corners] = True
+    band_nodes = np.flatnonzero(mark)
+    position = np.empty(phi.size, np.int64)
+    position[band_nodes] = np.arange(band_nodes.size)
     n_cells = ls.cell_nodes.shape[0]
-    local = np.searchsorted(band_nodes, ls.cell_nodes[band])
+    local = position[band_corners]
     flat = lambda arr: arr.ravel()[band_nodes]  # noqa: E731
     phi_b, ws_b, grow_b, shrink_b = flat(phi), flat(ws), flat(grow), flat(shrink)
     solid_b, empty_b = flat(model.solid_sdf), flat(model.empty_sdf)
