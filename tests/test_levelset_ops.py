@@ -259,6 +259,28 @@ def test_smoother_matches_helmholtz_fourier_response(r_cells, waves):
     assert np.abs(v - gain * np.cos(k * X)).max() < 0.01  # the mode stays a cosine in x
 
 
+@pytest.mark.parametrize("waves", [2, 5])
+def test_smoother_on_a_coarsened_grid_keeps_the_fourier_response_and_constants(waves):
+    # A smoothing length of 40 cells: the filter runs on a grid coarsened 2 x 2 (it still
+    # spans 20 coarse cells) and must keep the closed-form response cos(k x) / (1 + r^2 k^2)
+    # (Lazarov and Sigmund 2011), on an odd number of cells so coarse cells overhang.
+    h = 0.25
+    nx, ny = 161, 9
+    r = 40 * h
+    lg, X, Y = full_grid(nx, ny, h, r)
+    assert lg.smoothing_coarsening == 2
+    Lx = nx * h
+    k = waves * np.pi / Lx
+    jj, ii = np.nonzero(np.ones((ny, nx), bool))
+    c = (np.sin(k * (ii + 1) * h) - np.sin(k * ii * h)) / (k * h)  # cell means of cos(k x)
+    v = lg.smooth_cells(c)
+    gain = np.linalg.lstsq(np.cos(k * X).reshape(-1, 1), v.reshape(-1), rcond=None)[0][0]
+    assert gain == pytest.approx(1.0 / (1.0 + (r * k) ** 2), rel=0.02)
+    assert np.abs(v - gain * np.cos(k * X)).max() < 0.02 * max(gain, 0.05)
+    # constants come back unchanged (mean restriction, consistent load, bilinear prolongation)
+    np.testing.assert_allclose(lg.smooth_cells(np.full(ii.size, 2.5))[lg.node_active], 2.5, rtol=1e-12)
+
+
 # ---------------------------------------------------------------------------------------
 # e. clamp: union with keep-solid, minus keep-empty
 # ---------------------------------------------------------------------------------------

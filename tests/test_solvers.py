@@ -35,8 +35,12 @@ SMALL_COARSE = 300  # free dofs of the coarsest level in these tests: three coar
 def make_model(solver="auto"):
     """63 x 31 cells (odd, so the coarse grids overhang), a rectangular hole, a roller
     along the left edge and one at the lower right, two load cases."""
+    return build_model(solver_problem(solver))
+
+
+def solver_problem(solver="auto"):
     hole = ((36.0, 9.0), (47.0, 9.0), (47.0, 20.0), (36.0, 20.0))
-    problem = Problem(
+    return Problem(
         units=Units(), material=Material(E=E, nu=NU, thickness=T),
         domain=Domain(outline=((0, 0), (63, 0), (63, 31), (0, 31)), holes=(hole,), cell=1.0),
         supports=(Support("segment", ((0, 0), (0, 31)), "x", pad=False), Support("point", (63, 0), "y", pad=False)),
@@ -45,7 +49,6 @@ def make_model(solver="auto"):
         cases=(LoadCase("down", 1.0), LoadCase("side", 0.5)), regions=(), goal=Goal(0.5),
         method=Method(pads=False, solver=solver), name="solver-test",
     )
-    return build_model(problem)
 
 
 def design(model, level=0.0):
@@ -247,3 +250,39 @@ def test_automatic_choice_by_size_and_without_the_optional_solvers(monkeypatch):
     c, c_ref = np.einsum("ic,ic->c", model.forces, U), np.einsum("ic,ic->c", model.forces, ref)
     assert np.all(np.abs(c - c_ref) <= 1e-6 * c_ref)
     assert rel_diff(U, ref) <= 1e-3  # the loose default residual (1e-4) still gives the field
+
+
+def test_no_direct_fallback_above_the_size_limit(monkeypatch):
+    # Above DIRECT_FALLBACK_MAX unknowns a failed CG is reported, not handed to a
+    # factorization that may not fit in memory; the loop turns it into a numerical failure.
+    from levelform import multigrid
+
+    model = make_model()
+    scale = design(model)
+    K, _ = reference(model, scale)
+    monkeypatch.setattr(multigrid, "DIRECT_FALLBACK_MAX", model.n_free - 1)
+    mg = GridMultigrid(model, element_stiffness(E, NU, T), rtol=1e-12, coarse_size=SMALL_COARSE, maxiter=2)
+    with pytest.raises(FloatingPointError, match="too large"):
+        mg.solve(K, model.forces, scale=scale)
+
+
+def test_timing_the_phases_does_not_change_the_run():
+    # The phase clock of benchmarks/iteration.py only reads the time: the same design,
+    # compliance history and outline with and without it.
+    import dataclasses
+
+    from levelform.methods import levelset
+    from levelform.timing import PhaseClock
+
+    problem = solver_problem("direct")
+    problem = dataclasses.replace(problem, method=dataclasses.replace(problem.method, iterations=12))
+    clock = PhaseClock()
+    timed_run = levelset.run(problem, clock=clock)
+    plain = levelset.run(problem)
+    assert [r.compliance for r in timed_run.history] == [r.compliance for r in plain.history]
+    assert np.array_equal(timed_run.phi, plain.phi, equal_nan=True)
+    assert len(clock.iterations) == 11  # every iteration but the last moves the design
+    for it in clock.iterations:
+        assert {"assembly", "solve", "smoothing", "volume control", "update", "reinitialization"} <= set(it)
+        parts = sum(v for k, v in it.items() if k != "total")
+        assert 0.0 < parts <= it["total"] * (1 + 1e-9)

@@ -88,9 +88,12 @@ def _cut_cell_fraction(p: np.ndarray) -> np.ndarray:
 SMOOTH_CELLS_PER_LENGTH = 16.0
 
 
-def _helmholtz(active_flat: np.ndarray, cell_nodes: np.ndarray, h: float, r: float):
+def _helmholtz(active_flat: np.ndarray, cell_nodes: np.ndarray, h: float, r: float, weight=None):
     """Factorized (r^2 K + M) on the active nodes of a grid with square cells of size h,
-    the map from a cell-wise constant field to its load vector M v, and the nodal areas."""
+    the map from a cell-wise constant field to its load vector M v, and the nodal areas.
+    ``weight`` (per cell, default 1) scales each cell's matrices and load: the share of a
+    coarse cell that the fine domain covers."""
+    w = np.ones(cell_nodes.shape[0]) if weight is None else np.asarray(weight, float)
     number = np.full(active_flat.size, -1, np.int64)
     number[active_flat] = np.arange(int(active_flat.sum()))
     cn = number[cell_nodes]  # (n_cells, 4)
@@ -100,10 +103,10 @@ def _helmholtz(active_flat: np.ndarray, cell_nodes: np.ndarray, h: float, r: flo
     rows = np.repeat(cn, 4, axis=1).ravel()
     cols = np.tile(cn, (1, 4)).ravel()
     n = int(active_flat.sum())
-    A = sp.csc_matrix((np.tile(AE.ravel(), cn.shape[0]), (rows, cols)), shape=(n, n))
+    A = sp.csc_matrix(((w[:, None] * AE.ravel()[None, :]).ravel(), (rows, cols)), shape=(n, n))
     lu = spla.splu(A, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0, options={"SymmetricMode": True})
     # Right-hand side of a cell-wise constant field: h^2 / 4 of each cell to each corner.
-    ones = np.full(cn.size, h**2 / 4.0)
+    ones = np.repeat(w * (h**2 / 4.0), 4)
     cell_to_node = sp.csr_matrix((ones, (cn.ravel(), np.repeat(np.arange(cn.shape[0]), 4))), shape=(n, cn.shape[0]))
     return lu, cell_to_node, np.asarray(cell_to_node.sum(axis=1)).ravel()
 
@@ -274,7 +277,10 @@ class LevelSetGrid:
         coarse_nodes = np.stack([base, base + 1, base + NX + 2, base + NX + 1], axis=1)
         coarse_active = np.zeros((NY + 1) * (NX + 1), bool)
         coarse_active[coarse_nodes.ravel()] = True
-        self._smooth_lu, self._cell_to_node, _ = _helmholtz(coarse_active, coarse_nodes, c * self.h, r)
+        # A coarse cell at the domain edge counts with the share of it the fine cells cover,
+        # so the coarse domain does not overhang the fine one.
+        self._smooth_lu, self._cell_to_node, _ = _helmholtz(coarse_active, coarse_nodes, c * self.h, r,
+                                                            weight=counts / (c * c))
         # bilinear interpolation from the coarse nodes to every active fine node
         number = np.full(coarse_active.size, -1, np.int64)
         number[coarse_active] = np.arange(int(coarse_active.sum()))
