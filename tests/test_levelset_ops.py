@@ -184,6 +184,17 @@ def test_cell_fraction_exact_for_linear_fields():
 # ---------------------------------------------------------------------------------------
 # d. Helmholtz smoothing
 # ---------------------------------------------------------------------------------------
+def cosine_response(lg, X, nx, ny, h, waves):
+    """Smooth the cell means of cos(k x), k = waves pi / (nx h); returns k, the smoothed
+    nodal field and its least-squares gain on cos(k x)."""
+    k = waves * np.pi / (nx * h)
+    jj, ii = np.nonzero(np.ones((ny, nx), bool))
+    c = (np.sin(k * (ii + 1) * h) - np.sin(k * ii * h)) / (k * h)  # cell means of cos(k x)
+    v = lg.smooth_cells(c)
+    gain = np.linalg.lstsq(np.cos(k * X).reshape(-1, 1), v.reshape(-1), rcond=None)[0][0]
+    return k, v, gain
+
+
 def l_shaped_grid(h, r):
     """An L-shaped domain with an interior hole, so the natural boundary condition acts on
     re-entrant corners and inner edges too."""
@@ -248,12 +259,7 @@ def test_smoother_matches_helmholtz_fourier_response(r_cells, waves):
     h = 0.25
     nx, ny = 80, 6
     lg, X, Y = full_grid(nx, ny, h, r_cells * h)
-    Lx = nx * h
-    k = waves * np.pi / Lx
-    jj, ii = np.nonzero(np.ones((ny, nx), bool))
-    c = (np.sin(k * (ii + 1) * h) - np.sin(k * ii * h)) / (k * h)  # cell means of cos(k x)
-    v = lg.smooth_cells(c)
-    gain = np.linalg.lstsq(np.cos(k * X).reshape(-1, 1), v.reshape(-1), rcond=None)[0][0]
+    k, v, gain = cosine_response(lg, X, nx, ny, h, waves)
     # Wavelengths of 20-80 cells: discretization error measured at most 0.5 %.
     assert gain == pytest.approx(1.0 / (1.0 + (r_cells * h * k) ** 2), rel=0.01)
     assert np.abs(v - gain * np.cos(k * X)).max() < 0.01  # the mode stays a cosine in x
@@ -269,16 +275,11 @@ def test_smoother_on_a_coarsened_grid_keeps_the_fourier_response_and_constants(w
     r = 40 * h
     lg, X, Y = full_grid(nx, ny, h, r)
     assert lg.smoothing_coarsening == 2
-    Lx = nx * h
-    k = waves * np.pi / Lx
-    jj, ii = np.nonzero(np.ones((ny, nx), bool))
-    c = (np.sin(k * (ii + 1) * h) - np.sin(k * ii * h)) / (k * h)  # cell means of cos(k x)
-    v = lg.smooth_cells(c)
-    gain = np.linalg.lstsq(np.cos(k * X).reshape(-1, 1), v.reshape(-1), rcond=None)[0][0]
+    k, v, gain = cosine_response(lg, X, nx, ny, h, waves)
     assert gain == pytest.approx(1.0 / (1.0 + (r * k) ** 2), rel=0.02)
     assert np.abs(v - gain * np.cos(k * X)).max() < 0.02 * max(gain, 0.05)
     # constants come back unchanged (mean restriction, consistent load, bilinear prolongation)
-    np.testing.assert_allclose(lg.smooth_cells(np.full(ii.size, 2.5))[lg.node_active], 2.5, rtol=1e-12)
+    np.testing.assert_allclose(lg.smooth_cells(np.full(nx * ny, 2.5))[lg.node_active], 2.5, rtol=1e-12)
 
 
 # ---------------------------------------------------------------------------------------
