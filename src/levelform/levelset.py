@@ -122,14 +122,8 @@ class LevelSetGrid:
         a = node_active
         # Neighbour present in each direction (differences to a missing neighbour are 0:
         # a zero-gradient condition at the domain edge).
-        self.has_xm = np.zeros_like(a)
-        self.has_xm[:, 1:] = a[:, 1:] & a[:, :-1]
-        self.has_xp = np.zeros_like(a)
-        self.has_xp[:, :-1] = a[:, :-1] & a[:, 1:]
-        self.has_ym = np.zeros_like(a)
-        self.has_ym[1:, :] = a[1:, :] & a[:-1, :]
-        self.has_yp = np.zeros_like(a)
-        self.has_yp[:-1, :] = a[:-1, :] & a[1:, :]
+        self._pair_x = (a[:, 1:] & a[:, :-1]).astype(float)  # both ends of an x edge present
+        self._pair_y = (a[1:, :] & a[:-1, :]).astype(float)
         self._build_smoother(smoothing)
 
     # -- geometry -------------------------------------------------------------------
@@ -145,36 +139,58 @@ class LevelSetGrid:
 
     def upwind_norms(self, phi: np.ndarray):
         """Godunov upwind |grad phi| for an outward (V > 0) and an inward (V < 0) speed."""
-        h = self.h
-        dxm = np.zeros(self.shape)
-        dxp = np.zeros(self.shape)
-        dym = np.zeros(self.shape)
-        dyp = np.zeros(self.shape)
-        d = (phi[:, 1:] - phi[:, :-1]) / h
-        dxm[:, 1:] = d
-        dxp[:, :-1] = d
-        d = (phi[1:, :] - phi[:-1, :]) / h
-        dym[1:, :] = d
-        dyp[:-1, :] = d
-        dxm *= self.has_xm
-        dxp *= self.has_xp
-        dym *= self.has_ym
-        dyp *= self.has_yp
-        grow = np.sqrt(
-            np.maximum(dxm, 0) ** 2 + np.minimum(dxp, 0) ** 2 + np.maximum(dym, 0) ** 2 + np.minimum(dyp, 0) ** 2
-        )
-        shrink = np.sqrt(
-            np.minimum(dxm, 0) ** 2 + np.maximum(dxp, 0) ** 2 + np.minimum(dym, 0) ** 2 + np.maximum(dyp, 0) ** 2
-        )
-        return grow, shrink
+        work = self._upwind_work()
+        self._upwind_into(phi, work)
+        return work["grow"], work["shrink"]
+
+    def _upwind_work(self) -> dict:
+        """Work arrays of _upwind_into (fresh ones: the caller may keep the results)."""
+        ny, nx = self.shape
+        work = {k: np.empty((ny, nx - 1)) for k in ("dx", "px", "nx")}
+        work.update({k: np.empty((ny - 1, nx)) for k in ("dy", "py", "ny")})
+        work.update({k: np.empty((ny, nx)) for k in ("grow", "shrink")})
+        return work
+
+    def _upwind_into(self, phi: np.ndarray, w: dict) -> None:
+        """Fill w["grow"] and w["shrink"] with the upwind norms of phi, in place.
+
+        One-sided differences are zero where a neighbour is missing (a zero-gradient
+        condition at the domain edge). grow^2 = max(dxm,0)^2 + min(dxp,0)^2 + max(dym,0)^2
+        + min(dyp,0)^2, summed in that order; dxm at column j is dx[:, j - 1] (0 at j = 0),
+        dxp is dx[:, j]; shrink swaps max and min. Each difference is formed once."""
+        dx, px, nx_, dy, py, ny_ = (w[k] for k in ("dx", "px", "nx", "dy", "py", "ny"))
+        grow, shrink = w["grow"], w["shrink"]
+        np.subtract(phi[:, 1:], phi[:, :-1], out=dx)
+        np.divide(dx, self.h, out=dx)
+        dx *= self._pair_x
+        np.subtract(phi[1:, :], phi[:-1, :], out=dy)
+        np.divide(dy, self.h, out=dy)
+        dy *= self._pair_y
+        np.maximum(dx, 0.0, out=px)
+        px *= px
+        np.minimum(dx, 0.0, out=nx_)
+        nx_ *= nx_
+        np.maximum(dy, 0.0, out=py)
+        py *= py
+        np.minimum(dy, 0.0, out=ny_)
+        ny_ *= ny_
+        grow[:, 0] = 0.0
+        grow[:, 1:] = px
+        grow[:, :-1] += nx_
+        grow[1:, :] += py
+        grow[:-1, :] += ny_
+        shrink[:, 0] = 0.0
+        shrink[:, 1:] = nx_
+        shrink[:, :-1] += px
+        shrink[1:, :] += ny_
+        shrink[:-1, :] += py
+        np.sqrt(grow, out=grow)
+        np.sqrt(shrink, out=shrink)
 
     def advect(self, phi: np.ndarray, speed: np.ndarray, travel: float, cfl: float = 0.5) -> np.ndarray:
         """Solve phi_t + V |grad phi| = 0 (first-order upwind) until the boundary has moved
-        ``travel`` (a length) where |V| = 1; sub-steps keep dt |V|max / h <= cfl.
-
-        The same arithmetic as upwind_norms, in the same order (so the same numbers to the
-        last bit), but each one-sided difference is formed once per sub-step and every
-        temporary lives in a work array: on fine grids this loop runs tens of sub-steps."""
+        ``travel`` (a length) where |V| = 1; sub-steps keep dt |V|max / h <= cfl. The
+        sub-steps reuse one set of work arrays (on fine grids there are tens of them)."""
         a = self.node_active
         vmax = float(np.max(np.abs(speed[a]), initial=0.0))
         if travel <= 0.0 or vmax == 0.0:
@@ -183,44 +199,13 @@ class LevelSetGrid:
         dt = travel / n_sub
         vp = np.maximum(speed, 0.0) * a
         vm = np.minimum(speed, 0.0) * a
-        pair_x = (a[:, 1:] & a[:, :-1]).astype(float)  # both ends present: has_xp[:, :-1]
-        pair_y = (a[1:, :] & a[:-1, :]).astype(float)
-        ny, nx = self.shape
         out = phi.copy()
-        dx, px, nx_ = (np.empty((ny, nx - 1)) for _ in range(3))
-        dy, py, ny_ = (np.empty((ny - 1, nx)) for _ in range(3))
-        grow, shrink, t = (np.empty((ny, nx)) for _ in range(3))
+        work = self._upwind_work()
+        grow, shrink = work["grow"], work["shrink"]
+        t = np.empty(self.shape)
         for _ in range(n_sub):
-            # one-sided differences times "both present" (zero at the domain edge)
-            np.subtract(out[:, 1:], out[:, :-1], out=dx)
-            np.divide(dx, self.h, out=dx)
-            dx *= pair_x
-            np.subtract(out[1:, :], out[:-1, :], out=dy)
-            np.divide(dy, self.h, out=dy)
-            dy *= pair_y
-            np.maximum(dx, 0.0, out=px)
-            px *= px
-            np.minimum(dx, 0.0, out=nx_)
-            nx_ *= nx_
-            np.maximum(dy, 0.0, out=py)
-            py *= py
-            np.minimum(dy, 0.0, out=ny_)
-            ny_ *= ny_
-            # grow^2 = max(dxm,0)^2 + min(dxp,0)^2 + max(dym,0)^2 + min(dyp,0)^2, summed in
-            # that order; dxm at column j is dx[:, j - 1] (0 at j = 0), dxp is dx[:, j].
-            grow[:, 0] = 0.0
-            grow[:, 1:] = px
-            grow[:, :-1] += nx_
-            grow[1:, :] += py
-            grow[:-1, :] += ny_
-            shrink[:, 0] = 0.0
-            shrink[:, 1:] = nx_
-            shrink[:, :-1] += px
-            shrink[1:, :] += ny_
-            shrink[:-1, :] += py
-            np.sqrt(grow, out=grow)
-            np.sqrt(shrink, out=shrink)
-            grow *= vp
+            self._upwind_into(out, work)
+            grow *= vp  # out -= dt * (vp * grow + vm * shrink), in that order
             np.multiply(vm, shrink, out=t)
             grow += t
             grow *= dt
