@@ -157,7 +157,8 @@ class LatticeAssembly:
         if reuse:  # into the previous matrix's data array: no fresh pages to fault in
             if getattr(self, "_data", None) is None:
                 self._data = np.empty(self.keep.size)
-            data = np.take(flat, self.keep, out=self._data)
+            # mode "clip": with the default "raise" numpy buffers ``out`` (3x slower here)
+            data = np.take(flat, self.keep, out=self._data, mode="clip")
         else:
             data = flat[self.keep]
         K = sp.csc_matrix((data, self.indices, self.indptr), shape=(self.n, self.n), copy=False)
