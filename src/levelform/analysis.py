@@ -61,8 +61,10 @@ class PlateSystem:
             U = np.zeros((m.n_dof, Uf.shape[1]))
             U[m.free >= 0] = Uf
             case_c = np.einsum("ic,ic->c", m.forces, Uf)
-            ue = U[m.edofs]  # (n_cells, 8, n_cases)
-            energy = np.einsum("eic,ij,ejc->ec", ue, self.KE, ue)
+            energy = np.empty((m.edofs.shape[0], U.shape[1]))
+            for c in range(U.shape[1]):  # per case: a gather and one (n_cells, 8) @ (8, 8) product
+                ue = U[:, c][m.edofs]
+                energy[:, c] = np.einsum("ei,ei->e", ue @ self.KE, ue)
         return State(
             displacement=U,
             case_compliance=case_c,
@@ -83,9 +85,12 @@ class PlateSystem:
         h = self.model.grid.h
         B0 = centre_strain_operator(h)
         D = elasticity_matrix(self.E, self.nu)
-        ue = state.displacement[self.model.edofs]  # (n_cells, 8, n_cases)
-        s = np.einsum("ij,jk,ekc->eic", D, B0, ue)  # (n_cells, 3, n_cases)
-        ss = s[:, 0] ** 2 + s[:, 1] ** 2 + 2.0 * s[:, 2] ** 2
-        tr = s[:, 0] + s[:, 1]
-        g = (4.0 * ss - tr**2) / self.E
-        return g @ self.model.case_weights
+        DB = (D @ B0).T  # (8, 3): cell dofs -> centre stress
+        U = state.displacement
+        g = np.zeros(self.model.edofs.shape[0])
+        for c, w in enumerate(self.model.case_weights):
+            s = U[:, c][self.model.edofs] @ DB  # (n_cells, 3)
+            ss = s[:, 0] ** 2 + s[:, 1] ** 2 + 2.0 * s[:, 2] ** 2
+            tr = s[:, 0] + s[:, 1]
+            g += w * ((4.0 * ss - tr**2) / self.E)
+        return g
