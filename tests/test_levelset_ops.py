@@ -15,7 +15,7 @@ import shapely
 from contourpy import FillType, contour_generator
 from shapely.geometry import Point, Polygon, box
 
-from levelform.levelset import LevelSetGrid, cell_fraction
+from levelform.levelset import LevelSetGrid, cell_fraction, separated_saddles
 
 
 # ---------------------------------------------------------------------------------------
@@ -117,6 +117,123 @@ def test_advect_zero_speed_or_travel_is_identity():
     phi = np.hypot(X - 2.0, Y - 2.5) - 1.2
     np.testing.assert_array_equal(lg.advect(phi, np.zeros(phi.shape), 3.0), phi)
     np.testing.assert_array_equal(lg.advect(phi, np.ones(phi.shape), 0.0), phi)
+
+
+def godunov_step(phi, speed, active, h, dt):
+    """One explicit step of phi_t + V |grad phi| = 0 with the Godunov upwind Hamiltonian of
+    Osher and Sethian (1988, eq. 2.33; Sethian 1999, Level Set Methods and Fast Marching
+    Methods, sec. 6.4), written out plainly on padded arrays: a one-sided difference to a
+    node off the domain is zero (zero-gradient edge condition)."""
+    p = np.pad(phi, 1, mode="edge")
+    m = np.pad(active, 1, constant_values=False)
+    c = p[1:-1, 1:-1]
+    ok = lambda nb: m[1:-1, 1:-1] & nb  # noqa: E731
+    dxm = np.where(ok(m[1:-1, :-2]), (c - p[1:-1, :-2]) / h, 0.0)
+    dxp = np.where(ok(m[1:-1, 2:]), (p[1:-1, 2:] - c) / h, 0.0)
+    dym = np.where(ok(m[:-2, 1:-1]), (c - p[:-2, 1:-1]) / h, 0.0)
+    dyp = np.where(ok(m[2:, 1:-1]), (p[2:, 1:-1] - c) / h, 0.0)
+    grow = np.sqrt(np.maximum(dxm, 0) ** 2 + np.minimum(dxp, 0) ** 2 + np.maximum(dym, 0) ** 2
+                   + np.minimum(dyp, 0) ** 2)
+    shrink = np.sqrt(np.minimum(dxm, 0) ** 2 + np.maximum(dxp, 0) ** 2 + np.minimum(dym, 0) ** 2
+                     + np.maximum(dyp, 0) ** 2)
+    v = np.where(active, speed, 0.0)
+    return phi - dt * (np.maximum(v, 0) * grow + np.minimum(v, 0) * shrink)
+
+
+def test_advect_equals_the_godunov_upwind_scheme_written_out():
+    # The compiled sub-steps against the textbook scheme on an L-shaped domain with a hole
+    # (missing neighbours on re-entrant corners and inner edges), speeds of both signs.
+    h = 0.5
+    lg, _ = l_shaped_grid(h, h)
+    ny1, nx1 = lg.shape
+    rng = np.random.default_rng(7)
+    Y, X = np.mgrid[0:ny1, 0:nx1] * h
+    phi = np.sin(0.4 * X) * np.cos(0.3 * Y) * 3.0 + 0.05 * rng.standard_normal(X.shape)
+    speed = np.clip(1.4 * np.sin(0.2 * X + 0.25 * Y), -1.0, 1.0)
+    travel = 3.3 * h
+    n_sub = int(np.ceil(travel * np.abs(speed[lg.node_active]).max() / (0.5 * h)))
+    ref = phi.copy()
+    for _ in range(n_sub):
+        ref = godunov_step(ref, speed, lg.node_active, h, travel / n_sub)
+    got = lg.advect(phi, speed, travel)
+    a = lg.node_active
+    np.testing.assert_allclose(got[a], ref[a], rtol=0, atol=1e-13)
+    np.testing.assert_array_equal(got[~a], phi[~a])  # off the domain nothing moves
+    grow, shrink = lg.upwind_norms(phi)
+    one = godunov_step(phi, np.ones(phi.shape), a, h, 1.0)
+    np.testing.assert_allclose(grow[a], (phi - one)[a], rtol=0, atol=1e-13)
+    one = godunov_step(phi, -np.ones(phi.shape), a, h, 1.0)
+    np.testing.assert_allclose(shrink[a], (one - phi)[a], rtol=0, atol=1e-13)
+
+
+def test_compiled_loops_give_the_same_bits_on_one_thread_and_on_all():
+    # Parallel loops write only their own entries and sum over fixed chunks: the thread
+    # count must not change a result (a run is reproducible on any machine).
+    import numba
+
+    from levelform import kernels
+
+    h = 0.5
+    lg, _ = l_shaped_grid(h, 4 * h)
+    Y, X = np.mgrid[0 : lg.shape[0], 0 : lg.shape[1]] * h
+    phi = np.sin(0.37 * X) * np.cos(0.29 * Y) * 2.0 + 0.3
+    speed = np.clip(np.cos(0.21 * X - 0.17 * Y), -1, 1)
+    n_cells = lg.cell_nodes.shape[0]
+    local = np.ascontiguousarray(lg.cell_nodes)
+    flat = np.ascontiguousarray(phi.ravel())
+    ones = np.ones(flat.size)
+
+    def everything():
+        frac, stiff = lg.fractions_and_stiffness(phi)
+        area = kernels.trial_area_sum(0.1, 1.3, 2 * h, flat, flat * 0.7, ones, ones, ones * 9, ones * 9, local,
+                                      np.empty(flat.size), np.empty(kernels.n_chunks(n_cells)))
+        return lg.advect(phi, speed, 4 * h), frac, stiff, area
+
+    before = numba.get_num_threads()
+    try:
+        numba.set_num_threads(1)
+        one = everything()
+        numba.set_num_threads(numba.config.NUMBA_NUM_THREADS)
+        many = everything()
+    finally:
+        numba.set_num_threads(before)
+    for x, y in zip(one, many):
+        np.testing.assert_array_equal(x, y)
+
+
+def test_narrow_band_reinitialization_keeps_the_full_march_inside_the_band():
+    # Inside the band the values are those of the full march (which test (a) checks against
+    # the analytic circle distance); beyond it +-band with the sign kept; extend_distance
+    # puts the full march back there and leaves the band alone.
+    h = 0.25
+    lg, X, Y = full_grid(80, 80, h, 2 * h)
+    cx, cy, r = 10.1, 9.7, 4.3
+    phi = (X - cx) ** 2 + (Y - cy) ** 2 - r**2
+    full = lg.reinitialize(phi)
+    band = 6 * h
+    narrow = lg.reinitialize(phi, band=band)
+    inside = np.abs(full) < band - h
+    assert 0.1 < inside.mean() < 0.5  # the band is really narrower than the grid
+    np.testing.assert_array_equal(narrow[inside], full[inside])
+    beyond = np.abs(full) > band + h
+    np.testing.assert_array_equal(narrow[beyond], np.sign(phi[beyond]) * band)
+    exact = np.hypot(X - cx, Y - cy) - r  # analytic signed distance to a circle
+    ext = lg.extend_distance(narrow, band)
+    np.testing.assert_array_equal(ext[np.abs(narrow) < band], narrow[np.abs(narrow) < band])
+    assert np.abs(ext - exact).max() < 0.5 * h  # a distance everywhere again (full march: 0.26 h)
+
+
+def test_stiffness_fraction_is_the_area_except_in_separated_saddles():
+    rng = np.random.default_rng(3)
+    cell_nodes, node_active = grid_arrays(np.ones((30, 40), bool))
+    lg = LevelSetGrid(node_active, cell_nodes, 1.0, 1.0)
+    phi = rng.standard_normal(node_active.shape)
+    frac, stiff = lg.fractions_and_stiffness(phi)
+    corners = phi.ravel()[cell_nodes]
+    apart = separated_saddles(corners)
+    assert 10 < apart.sum()
+    np.testing.assert_array_equal(frac, cell_fraction(corners))
+    np.testing.assert_array_equal(stiff, np.where(apart, 0.0, frac))
 
 
 # ---------------------------------------------------------------------------------------
@@ -323,3 +440,42 @@ def test_clamp_union_and_difference_of_two_circles():
     # leaves B void.
     both = lg.clamp(dA, dB, dB)
     assert np.all(both[dB < -tol] > 0.0)
+
+
+def test_narrow_band_reinitialization_does_not_change_a_run(monkeypatch):
+    # The loop marches only reinit_band(...) from the boundary (docs/performance.md); a run
+    # must give the compliance history and outline of full marches (to rounding). A plate
+    # with a lattice of holes at a cell of 0.5: distances reach well past the band.
+    from levelform.methods import levelset as method
+    from levelform.spec import Domain, Goal, Load, LoadCase, Material, Method, Problem, Support, Units
+
+    problem = Problem(
+        units=Units(), material=Material(E=1.0, nu=0.3, thickness=1.0),
+        domain=Domain(outline=((0, 0), (90, 0), (90, 45), (0, 45)), holes=(), cell=0.5),
+        supports=(Support("segment", ((0, 0), (0, 45)), "x", pad=False), Support("point", (90, 0), "y", pad=False)),
+        loads=(Load("point", (0.0, 45.0), (0.0, -1.0)),), cases=(LoadCase("main"),), regions=(), goal=Goal(0.5),
+        method=Method(pads=False, solver="direct", iterations=12, initial_holes=True, hole_spacing=30.0),
+        name="band-test",
+    )
+    clipped = []
+    narrow_march = LevelSetGrid.reinitialize
+
+    def spy(self, phi, band=None):
+        out = narrow_march(self, phi, band)
+        if band is not None:
+            clipped.append(float(np.mean(np.abs(out[self.node_active]) >= band)))
+        return out
+
+    monkeypatch.setattr(LevelSetGrid, "reinitialize", spy)
+    banded = method.run(problem)
+    # every march really stopped short of some nodes (measured 1-13 % of them)
+    assert len(clipped) == 11 and min(clipped) > 0.005 and max(clipped) > 0.1
+    monkeypatch.setattr(LevelSetGrid, "reinitialize", lambda self, phi, band=None: narrow_march(self, phi))
+    full = method.run(problem)
+    c_band = np.array([r.compliance for r in banded.history])
+    c_full = np.array([r.compliance for r in full.history])
+    np.testing.assert_allclose(c_band, c_full, rtol=1e-9, atol=0)
+    assert banded.outline.symmetric_difference(full.outline).area < 1e-9 * full.outline.area
+    # the result's level set is a distance everywhere, not clipped at the band
+    a = ~np.isnan(full.phi)
+    np.testing.assert_allclose(banded.phi[a], full.phi[a], rtol=0, atol=1e-6 * problem.domain.cell)

@@ -11,24 +11,19 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 import skfmm
 
-# Corners of the unit cell in local order (counter-clockwise from lower left).
-_CORNER = np.array([[0.0, 0.0], [1.0, 0.0], [1.0, 1.0], [0.0, 1.0]])
-
+from . import kernels
 
 def cell_fraction(corner_phi: np.ndarray) -> np.ndarray:
     """Area fraction of each cell where phi < 0, for corner values ``(n, 4)`` in local order.
 
     phi is interpolated linearly along the cell edges (marching squares), so the area is
     exactly that of the polygon the zero contour draws in the cell: the same geometry as
-    the exported outline (an ambiguous saddle cell is taken as connected).
+    the exported outline (an ambiguous saddle cell is taken as connected unless the mean
+    of its corners is not negative, as contourpy draws it).
     """
-    p_all = np.asarray(corner_phi, float)
-    neg_all = p_all < 0.0
-    count = neg_all.sum(axis=1)
-    out = (count == 4).astype(float)
-    cut = np.flatnonzero((count > 0) & (count < 4))
-    if cut.size:
-        out[cut] = _cut_cell_fraction(p_all[cut])
+    p = np.ascontiguousarray(corner_phi, dtype=float).reshape(-1, 4)
+    out = np.empty(p.shape[0])
+    kernels.corner_areas(p, out)
     return out
 
 
@@ -39,48 +34,6 @@ def separated_saddles(corner_phi: np.ndarray) -> np.ndarray:
     neg = np.asarray(corner_phi) < 0.0
     saddle = (neg[:, 0] == neg[:, 2]) & (neg[:, 1] == neg[:, 3]) & (neg[:, 0] != neg[:, 1])
     return saddle & (np.asarray(corner_phi).mean(axis=1) >= 0.0)
-
-
-def _cut_cell_fraction(p: np.ndarray) -> np.ndarray:
-    """Marching-squares area for cells with corners of both signs."""
-    n = p.shape[0]
-    neg = p < 0.0
-    verts = np.zeros((n, 8, 2))
-    valid = np.zeros((n, 8), bool)
-    for k in range(4):
-        a, b = k, (k + 1) % 4
-        verts[:, 2 * k] = _CORNER[a]
-        valid[:, 2 * k] = neg[:, a]
-        cross = neg[:, a] != neg[:, b]
-        denom = np.where(cross, p[:, a] - p[:, b], 1.0)
-        t = np.where(cross, p[:, a] / denom, 0.0)
-        verts[:, 2 * k + 1] = _CORNER[a] + t[:, None] * (_CORNER[b] - _CORNER[a])
-        valid[:, 2 * k + 1] = cross
-    # Fill each invalid slot with the previous valid vertex (cyclically): repeated vertices
-    # add nothing to the shoelace sum, so the sum runs over the polygon's vertices only.
-    slot = np.where(valid, np.arange(8), -1)
-    last = np.maximum.accumulate(slot, axis=1)
-    wrap = slot.max(axis=1, keepdims=True)
-    idx = np.where(last < 0, wrap, last)
-    idx = np.maximum(idx, 0)
-    v = np.take_along_axis(verts, idx[:, :, None], axis=1)
-    x, y = v[:, :, 0], v[:, :, 1]
-    area = 0.5 * np.sum(x * np.roll(y, -1, axis=1) - np.roll(x, -1, axis=1) * y, axis=1)
-    area = np.where(wrap[:, 0] < 0, 0.0, np.abs(area))
-    # Saddle cells (material at two opposite corners): like contourpy, the mean of the
-    # corners decides; a non-negative centre value separates two corner triangles.
-    saddle = (neg[:, 0] == neg[:, 2]) & (neg[:, 1] == neg[:, 3]) & (neg[:, 0] != neg[:, 1])
-    apart = saddle & (p.mean(axis=1) >= 0.0)
-    if apart.any():
-        q = p[apart]
-        tri = np.zeros(q.shape[0])
-        for k in range(4):
-            qk, qn, qp = q[:, k], q[:, (k + 1) % 4], q[:, (k - 1) % 4]
-            with np.errstate(divide="ignore", invalid="ignore"):
-                corner = 0.5 * (qk / (qk - qn)) * (qk / (qk - qp))
-            tri += np.where(qk < 0.0, corner, 0.0)
-        area[apart] = tri
-    return np.clip(area, 0.0, 1.0)
 
 
 # Coarse cells that the Helmholtz smoothing length must span when the filter runs on a
@@ -128,69 +81,33 @@ class LevelSetGrid:
 
     # -- geometry -------------------------------------------------------------------
     def fractions(self, phi: np.ndarray) -> np.ndarray:
-        return cell_fraction(phi.ravel()[self.cell_nodes])
+        return self.fractions_and_stiffness(phi)[0]
 
     def stiffness_fractions(self, phi: np.ndarray) -> np.ndarray:
         """Material fraction for the stiffness: the area fraction, except that a cell whose
         two material corners the outline keeps apart carries nothing across (a cell-wise
         stiffness would join them, a link the exported outline does not have)."""
-        corners = phi.ravel()[self.cell_nodes]
-        return np.where(separated_saddles(corners), 0.0, cell_fraction(corners))
+        return self.fractions_and_stiffness(phi)[1]
+
+    def fractions_and_stiffness(self, phi: np.ndarray):
+        """(area fractions, stiffness fractions) of the cells, in one pass."""
+        n = self.cell_nodes.shape[0]
+        frac, stiff = np.empty(n), np.empty(n)
+        kernels.cell_areas(np.ascontiguousarray(phi, dtype=float).ravel(), self.cell_nodes, frac, stiff)
+        return frac, stiff
 
     def upwind_norms(self, phi: np.ndarray):
-        """Godunov upwind |grad phi| for an outward (V > 0) and an inward (V < 0) speed."""
-        work = self._upwind_work()
-        self._upwind_into(phi, work)
-        return work["grow"], work["shrink"]
-
-    def _upwind_work(self) -> dict:
-        """Work arrays of _upwind_into (fresh ones: the caller may keep the results)."""
-        ny, nx = self.shape
-        work = {k: np.empty((ny, nx - 1)) for k in ("dx", "px", "nx")}
-        work.update({k: np.empty((ny - 1, nx)) for k in ("dy", "py", "ny")})
-        work.update({k: np.empty((ny, nx)) for k in ("grow", "shrink")})
-        return work
-
-    def _upwind_into(self, phi: np.ndarray, w: dict) -> None:
-        """Fill w["grow"] and w["shrink"] with the upwind norms of phi, in place.
-
+        """Godunov upwind |grad phi| for an outward (V > 0) and an inward (V < 0) speed.
         One-sided differences are zero where a neighbour is missing (a zero-gradient
-        condition at the domain edge). grow^2 = max(dxm,0)^2 + min(dxp,0)^2 + max(dym,0)^2
-        + min(dyp,0)^2, summed in that order; dxm at column j is dx[:, j - 1] (0 at j = 0),
-        dxp is dx[:, j]; shrink swaps max and min. Each difference is formed once."""
-        dx, px, nx_, dy, py, ny_ = (w[k] for k in ("dx", "px", "nx", "dy", "py", "ny"))
-        grow, shrink = w["grow"], w["shrink"]
-        np.subtract(phi[:, 1:], phi[:, :-1], out=dx)
-        np.divide(dx, self.h, out=dx)
-        dx *= self._pair_x
-        np.subtract(phi[1:, :], phi[:-1, :], out=dy)
-        np.divide(dy, self.h, out=dy)
-        dy *= self._pair_y
-        np.maximum(dx, 0.0, out=px)
-        px *= px
-        np.minimum(dx, 0.0, out=nx_)
-        nx_ *= nx_
-        np.maximum(dy, 0.0, out=py)
-        py *= py
-        np.minimum(dy, 0.0, out=ny_)
-        ny_ *= ny_
-        grow[:, 0] = 0.0
-        grow[:, 1:] = px
-        grow[:, :-1] += nx_
-        grow[1:, :] += py
-        grow[:-1, :] += ny_
-        shrink[:, 0] = 0.0
-        shrink[:, 1:] = nx_
-        shrink[:, :-1] += px
-        shrink[1:, :] += ny_
-        shrink[:-1, :] += py
-        np.sqrt(grow, out=grow)
-        np.sqrt(shrink, out=shrink)
+        condition at the domain edge); see kernels.upwind_norms."""
+        grow, shrink = np.empty(self.shape), np.empty(self.shape)
+        kernels.upwind_norms(np.ascontiguousarray(phi, dtype=float), self._pair_x, self._pair_y, self.h, grow, shrink)
+        return grow, shrink
 
     def advect(self, phi: np.ndarray, speed: np.ndarray, travel: float, cfl: float = 0.5) -> np.ndarray:
         """Solve phi_t + V |grad phi| = 0 (first-order upwind) until the boundary has moved
-        ``travel`` (a length) where |V| = 1; sub-steps keep dt |V|max / h <= cfl. The
-        sub-steps reuse one set of work arrays (on fine grids there are tens of them)."""
+        ``travel`` (a length) where |V| = 1; sub-steps keep dt |V|max / h <= cfl (on fine
+        grids there are tens of them; each is one compiled pass, kernels.upwind_step)."""
         a = self.node_active
         vmax = float(np.max(np.abs(speed[a]), initial=0.0))
         if travel <= 0.0 or vmax == 0.0:
@@ -199,30 +116,44 @@ class LevelSetGrid:
         dt = travel / n_sub
         vp = np.maximum(speed, 0.0) * a
         vm = np.minimum(speed, 0.0) * a
-        out = phi.copy()
-        work = self._upwind_work()
-        grow, shrink = work["grow"], work["shrink"]
-        t = np.empty(self.shape)
-        for _ in range(n_sub):
-            self._upwind_into(out, work)
-            grow *= vp  # out -= dt * (vp * grow + vm * shrink), in that order
-            np.multiply(vm, shrink, out=t)
-            grow += t
-            grow *= dt
-            out -= grow
-        return out
+        old = np.array(phi, dtype=float, order="C")
+        new = np.empty_like(old)
+        for _ in range(n_sub):  # two buffers in turn: each step reads one and writes the other
+            kernels.upwind_step(old, new, vp, vm, self._pair_x, self._pair_y, self.h, dt)
+            old, new = new, old
+        return old
 
-    def reinitialize(self, phi: np.ndarray) -> np.ndarray:
+    def reinitialize(self, phi: np.ndarray, band: float | None = None) -> np.ndarray:
         """Signed distance to the zero contour by fast marching (scikit-fmm), restricted to
-        the active nodes. A design with no boundary is returned unchanged."""
+        the active nodes. A design with no boundary is returned unchanged.
+
+        ``band`` (a length): march only that far from the contour (scikit-fmm's narrow
+        band; the values inside it are those of the full march) and set the nodes beyond
+        it to +-band, keeping their sign."""
         a = self.node_active
         vals = phi[a]
         if not (np.any(vals < 0) and np.any(vals > 0)):
             return phi.copy()
         masked = np.ma.MaskedArray(np.where(a, phi, 1.0), mask=~a)
-        d = skfmm.distance(masked, dx=self.h)
         out = phi.copy()
+        if band is None:
+            d = skfmm.distance(masked, dx=self.h)
+            out[a] = np.ma.getdata(d)[a]
+            return out
+        d = skfmm.distance(masked, dx=self.h, narrow=float(band))
+        far = np.ma.getmaskarray(d) & a
         out[a] = np.ma.getdata(d)[a]
+        out[far] = np.where(phi[far] < 0.0, -float(band), float(band))
+        return out
+
+    def extend_distance(self, phi: np.ndarray, band: float) -> np.ndarray:
+        """phi of a narrow-band reinitialization (``band``) with the nodes at +-band replaced
+        by their distance from a full march; the nodes inside the band, and so the zero
+        contour, are kept as they are."""
+        full = self.reinitialize(phi)
+        far = self.node_active & (np.abs(phi) >= band)
+        out = phi.copy()
+        out[far] = full[far]
         return out
 
     # -- smoothing ------------------------------------------------------------------

@@ -20,7 +20,8 @@ from scipy.optimize import brentq
 from ..analysis import PlateSystem
 from ..geometry import domain_polygon, fabrication_report, outline_from_levelset
 from ..grid import build_model, load_path_intact
-from ..levelset import LevelSetGrid, cell_fraction, perforated_start
+from .. import kernels
+from ..levelset import LevelSetGrid, perforated_start
 from ..spec import IterationRecord, Problem, Result
 from ..timing import phase
 
@@ -173,8 +174,8 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
                 with phase(clock, "checkpoint"):
                     checkpoint.save(S.to_arrays())
             with phase(clock, "fractions"):
-                frac = ls.fractions(S.phi)
-                scale = st.ersatz + (1.0 - st.ersatz) * ls.stiffness_fractions(S.phi)
+                frac, stiff = ls.fractions_and_stiffness(S.phi)
+                scale = st.ersatz + (1.0 - st.ersatz) * stiff
             try:
                 state = system.analyse(scale)
             except FloatingPointError as exc:
@@ -231,7 +232,9 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
     if S.cut and not status.startswith("load path lost"):
         converged, status = False, "load path lost: the final design connects no load to a support"
     phi, frac, state = best
-    phi_out = np.where(a, phi, np.nan)
+    # The loop's phi is a distance only within the reinitialization band; the result's is
+    # one everywhere (the band, and so the outline, unchanged).
+    phi_out = np.where(a, ls.extend_distance(phi, reinit_band(st, h)), np.nan)
     domain = domain_polygon(problem)
     outline = outline_from_levelset(phi_out, g, domain)
     dens = np.full(g.ny * g.nx, np.nan)
@@ -256,6 +259,22 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
         case_compliance={n: float(v) for n, v in zip(model.case_names, state.case_compliance)},
         fabrication=fabrication_report(outline, domain, fab),
     )
+
+
+def reinit_band(st, h: float) -> float:
+    """Width of the band the loop's reinitialization marches (a length).
+
+    The next update moves the boundary by at most ``step`` (|V| <= 1) in n upwind sub-steps
+    (dt |V| / h <= 1/2); the value a node ends with is a weighted mean of values upwind of
+    it, centred ``step`` away and spread over about sqrt(n) / 2 cells, so every node that
+    can end near the zero contour draws on values within step + 3 sqrt(n) h of the old
+    contour (six spreads: weights beyond are below 1e-9). Hole seeding asks for material
+    deeper than a hole radius plus two cells; the band covers both, with four cells to
+    spare. (The volume control needs no more: a node at +-band keeps its sign through a
+    linearized step, its upwind norms being zero.)"""
+    n = max(1, math.ceil(st.step / (0.5 * h)))
+    hole = max(0.6 * st.smoothing, 1.5 * h) + 2.0 * h
+    return max(st.step + 3.0 * math.sqrt(n) * h, hole) + 4.0 * h
 
 
 def _update(S, state, frac, scale, it, model, ls, system, st, goal, morph, fab, hole_radius, X, Y, clock=None):
@@ -285,9 +304,11 @@ def _update(S, state, frac, scale, it, model, ls, system, st, goal, morph, fab, 
     with phase(clock, "update"):
         speed = np.clip((ws - lam) / vscale, -1.0, 1.0)
         phi = ls.clamp(ls.advect(phi, speed, S.step), model.solid_sdf, model.empty_sdf)
+    filtering = morph and S.goal_reached_at >= 0 and it >= S.goal_reached_at + MORPH_AFTER
     with phase(clock, "reinitialization"):
-        phi = ls.reinitialize(phi)
-    if morph and S.goal_reached_at >= 0 and it >= S.goal_reached_at + MORPH_AFTER:
+        # the fabrication filter offsets phi by up to half the limits: it needs all of it
+        phi = ls.reinitialize(phi, band=None if filtering else reinit_band(st, h))
+    if filtering:
         with phase(clock, "fabrication filter"):
             before = float(ls.fractions(phi).mean())
             phi = _fabrication_filter(phi, ls, model, fab)
@@ -306,7 +327,10 @@ def _seed_step(S, state, frac, it, model, ls, system, st, hole_radius, X, Y, ws,
         lam_boundary = float(system.energy_density(state)[cut].mean()) if cut.any() else lam
         phi_s, n_new = _seed_holes(phi, ls, model, g_nodes, lam_boundary, hole_radius, st.hole_spacing, X, Y)
         if n_new:
-            phi = ls.reinitialize(ls.clamp(phi_s, model.solid_sdf, model.empty_sdf))
+            # No reinitialization here: the new holes lie deep in material, apart from the
+            # boundary and from each other, so the union max(phi, disc) is already a signed
+            # distance (the one after the update follows).
+            phi = ls.clamp(phi_s, model.solid_sdf, model.empty_sdf)
             S.last_seed = it
             lam = _multiplier(phi, ws, vscale, S.step, S.target + S.lost, ls, model)
     return phi, lam
@@ -325,8 +349,9 @@ def _multiplier(phi, ws, vscale, step, target, ls, model, now=None) -> float:
     # so a cell whose corners all lie farther than that (plus a cell diagonal) from the zero
     # level keeps its fraction (0 or 1). Evaluate the band only.
     reach = step * float(max(grow[a].max(initial=0.0), shrink[a].max(initial=0.0))) + 1.5 * ls.h
-    corners = phi.ravel()[ls.cell_nodes]
-    band = np.flatnonzero(np.abs(corners).min(axis=1) <= reach)
+    near = np.empty(ls.cell_nodes.shape[0], bool)
+    kernels.near_cells(np.ascontiguousarray(phi, dtype=float).ravel(), ls.cell_nodes, reach, near)
+    band = np.flatnonzero(near)
     now = ls.fractions(phi) if now is None else now  # cell fractions of phi, if known
     fixed_sum = float(now.sum() - now[band].sum())
     band_corners = ls.cell_nodes[band]
@@ -337,15 +362,17 @@ def _multiplier(phi, ws, vscale, step, target, ls, model, now=None) -> float:
     position[band_nodes] = np.arange(band_nodes.size)
     n_cells = ls.cell_nodes.shape[0]
     local = position[band_corners]
-    flat = lambda arr: arr.ravel()[band_nodes]  # noqa: E731
+    flat = lambda arr: np.ascontiguousarray(arr.ravel()[band_nodes], dtype=float)  # noqa: E731
     phi_b, ws_b, grow_b, shrink_b = flat(phi), flat(ws), flat(grow), flat(shrink)
     solid_b, empty_b = flat(model.solid_sdf), flat(model.empty_sdf)
+    trial = np.empty(band_nodes.size)
+    partial = np.empty(kernels.n_chunks(band.size))
 
     def predicted(lam):
-        v = np.clip((ws_b - lam) / vscale, -1.0, 1.0)
-        trial = phi_b - step * (np.maximum(v, 0.0) * grow_b + np.minimum(v, 0.0) * shrink_b)
-        trial = np.maximum(np.minimum(trial, solid_b), -empty_b)
-        return (fixed_sum + float(cell_fraction(trial[local]).sum())) / n_cells - target
+        # one compiled pass: trial node values, clamped, and the sum of the band's areas
+        area = kernels.trial_area_sum(float(lam), vscale, step, phi_b, ws_b, grow_b, shrink_b, solid_b, empty_b,
+                                      local, trial, partial)
+        return (fixed_sum + area) / n_cells - target
 
     lo = float(ws[a].min()) - vscale
     hi = float(ws[a].max()) + vscale
