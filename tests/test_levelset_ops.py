@@ -186,7 +186,7 @@ def test_compiled_loops_give_the_same_bits_on_one_thread_and_on_all():
     def everything():
         frac, stiff = lg.fractions_and_stiffness(phi)
         area = kernels.trial_area_sum(0.1, 1.3, 2 * h, flat, flat * 0.7, ones, ones, ones * 9, ones * 9, local,
-                                      np.empty(flat.size), np.empty(kernels.n_chunks(n_cells)))
+                                      np.arange(n_cells), np.empty(kernels.n_chunks(n_cells)))
         return lg.advect(phi, speed, 4 * h), frac, stiff, area
 
     before = numba.get_num_threads()
@@ -199,6 +199,31 @@ def test_compiled_loops_give_the_same_bits_on_one_thread_and_on_all():
         numba.set_num_threads(before)
     for x, y in zip(one, many):
         np.testing.assert_array_equal(x, y)
+
+
+def test_volume_control_trial_areas_equal_the_areas_of_the_trial_level_set():
+    # The multiplier's compiled evaluation (kernels.trial_area_sum) against the cut-cell
+    # areas (checked against contourpy above) of the linearized update written out.
+    from levelform import kernels
+
+    h = 0.5
+    lg, _ = l_shaped_grid(h, 4 * h)
+    Y, X = np.mgrid[0 : lg.shape[0], 0 : lg.shape[1]] * h
+    phi = np.sin(0.37 * X) * np.cos(0.29 * Y) * 2.0 + 0.3
+    ws = np.cos(0.11 * X + 0.23 * Y) + 0.2
+    grow, shrink = lg.upwind_norms(phi)
+    solid = np.hypot(X - 4.0, Y - 4.0) - 1.5  # a keep-solid disc
+    empty = np.full(phi.shape, 1e9)
+    band = np.flatnonzero(np.arange(lg.cell_nodes.shape[0]) % 3 != 0)  # any subset of cells
+    for lam, vscale, step in [(0.1, 1.3, 2 * h), (-0.4, 0.5, 3 * h), (0.9, 2.0, h)]:
+        v = np.clip((ws - lam) / vscale, -1.0, 1.0)
+        trial = phi - step * (np.maximum(v, 0.0) * grow + np.minimum(v, 0.0) * shrink)
+        trial = np.maximum(np.minimum(trial, solid), -empty)
+        ref = cell_fraction(trial.ravel()[lg.cell_nodes[band]]).sum()
+        got = kernels.trial_area_sum(lam, vscale, step, phi.ravel(), ws.ravel(), grow.ravel(), shrink.ravel(),
+                                     solid.ravel(), empty.ravel(), lg.cell_nodes, band,
+                                     np.empty(kernels.n_chunks(band.size)))
+        assert got == pytest.approx(ref, rel=1e-13)
 
 
 def test_narrow_band_reinitialization_keeps_the_full_march_inside_the_band():

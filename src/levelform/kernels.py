@@ -101,27 +101,33 @@ def cell_areas(phi_flat, cell_nodes, frac, stiff):
         stiff[e] = 0.0 if apart else a
 
 
+@njit(cache=True, inline="always")
+def _trial(k, lam, vscale, step, phi, ws, grow, shrink, solid, empty):
+    v = (ws[k] - lam) / vscale
+    v = min(max(v, -1.0), 1.0)
+    t = phi[k] - step * (max(v, 0.0) * grow[k] + min(v, 0.0) * shrink[k])
+    return max(min(t, solid[k]), -empty[k])
+
+
 @njit(cache=True, parallel=True)
-def trial_area_sum(lam, vscale, step, phi, ws, grow, shrink, solid, empty, local, trial, partial):
-    """Sum of the cell areas after one linearized update with multiplier ``lam``: node
-    values phi - step * (max(v, 0) grow + min(v, 0) shrink), v = clip((ws - lam) / vscale),
-    clamped to the keep regions, then the area of each cell of ``local`` (its corner
-    positions in the node arrays). ``trial`` and ``partial`` are work arrays."""
-    n = phi.shape[0]
-    for k in prange(n):
-        v = (ws[k] - lam) / vscale
-        v = min(max(v, -1.0), 1.0)
-        t = phi[k] - step * (max(v, 0.0) * grow[k] + min(v, 0.0) * shrink[k])
-        trial[k] = max(min(t, solid[k]), -empty[k])
-    n_cells = local.shape[0]
-    n_chunks = partial.shape[0]
-    for c in prange(n_chunks):
+def trial_area_sum(lam, vscale, step, phi, ws, grow, shrink, solid, empty, cell_nodes, band, partial):
+    """Sum of the areas of the cells ``band`` (indices into ``cell_nodes``) after one
+    linearized update with multiplier ``lam``: each corner takes phi - step * (max(v, 0)
+    grow + min(v, 0) shrink), v = clip((ws - lam) / vscale, -1, 1), clamped to the keep
+    regions (flat node arrays). ``partial`` (n_chunks(band.size)) is a work array."""
+    n = band.shape[0]
+    n_part = partial.shape[0]
+    for c in prange(n_part):
         s = 0.0
-        for e in range(c * CHUNK, min((c + 1) * CHUNK, n_cells)):
-            s += corner_area(trial[local[e, 0]], trial[local[e, 1]], trial[local[e, 2]], trial[local[e, 3]])
+        for b in range(c * CHUNK, min((c + 1) * CHUNK, n)):
+            e = band[b]
+            s += corner_area(_trial(cell_nodes[e, 0], lam, vscale, step, phi, ws, grow, shrink, solid, empty),
+                             _trial(cell_nodes[e, 1], lam, vscale, step, phi, ws, grow, shrink, solid, empty),
+                             _trial(cell_nodes[e, 2], lam, vscale, step, phi, ws, grow, shrink, solid, empty),
+                             _trial(cell_nodes[e, 3], lam, vscale, step, phi, ws, grow, shrink, solid, empty))
         partial[c] = s
     total = 0.0
-    for c in range(n_chunks):
+    for c in range(n_part):
         total += partial[c]
     return total
 

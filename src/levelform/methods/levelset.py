@@ -72,8 +72,15 @@ def _seed_holes(phi, ls, model, g_nodes, lam, radius, spacing, X, Y):
             if len(chosen) >= n_max:
                 break
     out = phi.copy()
+    # A disc's distance field can only win within radius + max depth of the material of a
+    # node (farther out radius - distance is below every phi): a window, not the grid.
+    depth = max(0.0, float(-phi[a].min()))
+    k = int(math.ceil((radius + depth) / ls.h)) + 1
+    nx1 = phi.shape[1]
     for c in chosen:
-        out = np.maximum(out, radius - np.hypot(X - xs[c], Y - ys[c]))
+        j, i = divmod(c, nx1)
+        win = (slice(max(0, j - k), j + k + 1), slice(max(0, i - k), i + k + 1))
+        out[win] = np.maximum(out[win], radius - np.hypot(X[win] - xs[c], Y[win] - ys[c]))
     return out, len(chosen)
 
 
@@ -348,30 +355,23 @@ def _multiplier(phi, ws, vscale, step, target, ls, model, now=None) -> float:
     # Only cells near the boundary can change: a node moves by at most step * |grad phi|,
     # so a cell whose corners all lie farther than that (plus a cell diagonal) from the zero
     # level keeps its fraction (0 or 1). Evaluate the band only.
-    reach = step * float(max(grow[a].max(initial=0.0), shrink[a].max(initial=0.0))) + 1.5 * ls.h
+    # grow and shrink are 0 off the domain (no differences there)
+    reach = step * float(max(grow.max(initial=0.0), shrink.max(initial=0.0))) + 1.5 * ls.h
+    flat = lambda arr: np.ascontiguousarray(arr, dtype=float).ravel()  # noqa: E731
+    phi_f, ws_f, grow_f, shrink_f = flat(phi), flat(ws), flat(grow), flat(shrink)
+    solid_f, empty_f = flat(model.solid_sdf), flat(model.empty_sdf)
     near = np.empty(ls.cell_nodes.shape[0], bool)
-    kernels.near_cells(np.ascontiguousarray(phi, dtype=float).ravel(), ls.cell_nodes, reach, near)
+    kernels.near_cells(phi_f, ls.cell_nodes, reach, near)
     band = np.flatnonzero(near)
     now = ls.fractions(phi) if now is None else now  # cell fractions of phi, if known
     fixed_sum = float(now.sum() - now[band].sum())
-    band_corners = ls.cell_nodes[band]
-    mark = np.zeros(phi.size, bool)  # sorted unique nodes of the band by marking, not sorting
-    mark[band_corners] = True
-    band_nodes = np.flatnonzero(mark)
-    position = np.empty(phi.size, np.int64)
-    position[band_nodes] = np.arange(band_nodes.size)
     n_cells = ls.cell_nodes.shape[0]
-    local = position[band_corners]
-    flat = lambda arr: np.ascontiguousarray(arr.ravel()[band_nodes], dtype=float)  # noqa: E731
-    phi_b, ws_b, grow_b, shrink_b = flat(phi), flat(ws), flat(grow), flat(shrink)
-    solid_b, empty_b = flat(model.solid_sdf), flat(model.empty_sdf)
-    trial = np.empty(band_nodes.size)
     partial = np.empty(kernels.n_chunks(band.size))
 
     def predicted(lam):
-        # one compiled pass: trial node values, clamped, and the sum of the band's areas
-        area = kernels.trial_area_sum(float(lam), vscale, step, phi_b, ws_b, grow_b, shrink_b, solid_b, empty_b,
-                                      local, trial, partial)
+        # one compiled pass over the band: trial corner values, clamped, and their areas
+        area = kernels.trial_area_sum(float(lam), vscale, step, phi_f, ws_f, grow_f, shrink_f, solid_f, empty_f,
+                                      ls.cell_nodes, band, partial)
         return (fixed_sum + area) / n_cells - target
 
     lo = float(ws[a].min()) - vscale
