@@ -8,7 +8,9 @@ so that every measured iteration analyses a design with many members and holes (
 solid start the first iterations analyse a nearly uniform plate, which multigrid solves
 in a few iterations: unrepresentative). The first ``--skip`` iterations (cold start of
 the solver) are left out; the phases are averaged over the rest (hole seeding and
-checkpoints happen in some iterations only; means add up to the mean iteration). Then, in another process, scipy's default sparse solve
+checkpoints happen in some iterations only; means add up to the mean iteration), and the
+ratio of each iteration to its own solve is reported as a median with its range (steadier
+on a shared machine). Then, in another process, scipy's default sparse solve
 (``scipy.sparse.linalg.spsolve``: SuperLU, COLAMD ordering) solves the system of the last
 analysed design of that run, for the speed-up "in the same run". Prints one table row per
 size and the fitted exponent of the per-iteration time against the number of cells.
@@ -62,6 +64,9 @@ def run_size(nx: int, ny: int, iterations: int, skip: int, solver: str, save: st
     its = clock.iterations[skip:]
     med = {p: float(np.mean([it.get(p, 0.0) for it in its])) for p in PHASES + ("total",)}
     med["other"] = med["total"] - sum(med[p] for p in PHASES)
+    # the ratio of each iteration to its own solve: on a shared machine a burst of load
+    # slows one iteration's parts together, so the median of these ratios is the steadier
+    ratios = [it["total"] / it["solve"] for it in its if it.get("solve")]
     # the system of the last analysed design, for the SuperLU comparison
     from levelform.grid import build_model
     from levelform.levelset import LevelSetGrid
@@ -75,7 +80,8 @@ def run_size(nx: int, ny: int, iterations: int, skip: int, solver: str, save: st
         "nx": nx, "ny": ny, "cells": nx * ny, "free": int(model.n_free), "solver": result.settings["solver_used"],
         "iterations": len(clock.iterations), "measured": len(its), "run_s": total,
         "setup_s": first[0] - t0 if first else total, "median": med, "peak_gib": peak_gib(),
-        "compliance": result.compliance,
+        "compliance": result.compliance, "ratio_median": float(np.median(ratios)) if ratios else float("nan"),
+        "ratio_range": [float(min(ratios)), float(max(ratios))] if ratios else [],
     }
 
 
@@ -143,16 +149,17 @@ def main():
             print("  " + ", ".join(f"{p} {m[p]:.3f}" for p in PHASES + ("other", "total")) + " (s)", flush=True)
     print()
     cols = ("assembly", "solve", "sensitivity", "smoothing", "volume control", "update", "reinitialization")
-    print("| cells | solver | " + " | ".join(cols) + " | rest | iteration s | iteration / solve | peak GiB "
-          "| SuperLU (spsolve) s | speed-up of the solve |")
-    print("|---" * (len(cols) + 8) + "|")
+    print("| cells | solver | " + " | ".join(cols) + " | rest | iteration s | iteration / solve "
+          "| median of per-iteration ratios (range) | peak GiB | SuperLU (spsolve) s | speed-up of the solve |")
+    print("|---" * (len(cols) + 9) + "|")
     for r in rows:
         m = r["median"]
         rest = m["total"] - sum(m[c] for c in cols)
         slu = f"{r['superlu_s']:.1f}" if "superlu_s" in r else "not run"
         up = f"{r['superlu_s'] / m['solve']:.1f}x" if "superlu_s" in r else "-"
         print(f"| {r['cells']:,} | {r['solver']} | " + " | ".join(f"{m[c]:.3f}" for c in cols)
-              + f" | {rest:.3f} | {m['total']:.2f} | {m['total'] / m['solve']:.2f} | {r['peak_gib']:.2f} | {slu} | {up} |")
+              + f" | {rest:.3f} | {m['total']:.2f} | {m['total'] / m['solve']:.2f} | {r['ratio_median']:.2f} "
+              f"({r['ratio_range'][0]:.2f}-{r['ratio_range'][1]:.2f}) | {r['peak_gib']:.2f} | {slu} | {up} |")
     if len(rows) >= 2:
         n = np.log([r["cells"] for r in rows])
         t = np.log([r["median"]["total"] for r in rows])

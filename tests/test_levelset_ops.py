@@ -186,7 +186,7 @@ def test_compiled_loops_give_the_same_bits_on_one_thread_and_on_all():
     def everything():
         frac, stiff = lg.fractions_and_stiffness(phi)
         area = kernels.trial_area_sum(0.1, 1.3, 2 * h, flat, flat * 0.7, ones, ones, ones * 9, ones * 9, local,
-                                      np.arange(n_cells), np.empty(kernels.n_chunks(n_cells)))
+                                      np.arange(n_cells), np.empty(flat.size), np.empty(kernels.n_chunks(n_cells)))
         return lg.advect(phi, speed, 4 * h), frac, stiff, area
 
     before = numba.get_num_threads()
@@ -221,7 +221,7 @@ def test_volume_control_trial_areas_equal_the_areas_of_the_trial_level_set():
         trial = np.maximum(np.minimum(trial, solid), -empty)
         ref = cell_fraction(trial.ravel()[lg.cell_nodes[band]]).sum()
         got = kernels.trial_area_sum(lam, vscale, step, phi.ravel(), ws.ravel(), grow.ravel(), shrink.ravel(),
-                                     solid.ravel(), empty.ravel(), lg.cell_nodes, band,
+                                     solid.ravel(), empty.ravel(), lg.cell_nodes, band, np.empty(phi.size),
                                      np.empty(kernels.n_chunks(band.size)))
         assert got == pytest.approx(ref, rel=1e-13)
 

@@ -366,12 +366,13 @@ def _multiplier(phi, ws, vscale, step, target, ls, model, now=None) -> float:
     now = ls.fractions(phi) if now is None else now  # cell fractions of phi, if known
     fixed_sum = float(now.sum() - now[band].sum())
     n_cells = ls.cell_nodes.shape[0]
+    trial = np.empty(phi_f.size)
     partial = np.empty(kernels.n_chunks(band.size))
 
     def predicted(lam):
         # one compiled pass over the band: trial corner values, clamped, and their areas
         area = kernels.trial_area_sum(float(lam), vscale, step, phi_f, ws_f, grow_f, shrink_f, solid_f, empty_f,
-                                      ls.cell_nodes, band, partial)
+                                      ls.cell_nodes, band, trial, partial)
         return (fixed_sum + area) / n_cells - target
 
     lo = float(ws[a].min()) - vscale
