@@ -237,9 +237,13 @@ def test_automatic_choice_by_size_and_without_the_optional_solvers(monkeypatch):
     assert isinstance(got, DirectSolver) and got.note is None
     _, ref = reference(model, design(model))
     assert rel_diff(PlateSystem(model, E, NU, T).analyse(design(model)).displacement[model.free >= 0], ref) <= 1e-8
-    # Above the crossover size: multigrid, wired through PlateSystem (the cell scale
-    # factors reach the coarse grids).
+    # Above the crossover sizes: multigrid, wired through PlateSystem (the cell scale
+    # factors reach the coarse grids). Between the two crossovers PARDISO where installed.
     monkeypatch.setattr(fem, "MULTIGRID_MIN_FREE", model.n_free)
+    monkeypatch.delitem(sys.modules, "pypardiso")
+    if fem.optional_solver_available("pardiso"):
+        assert isinstance(make_solver("auto", model.n_free, model, KE), PardisoSolver)
+    monkeypatch.setattr(fem, "PARDISO_MAX_FREE", model.n_free)
     monkeypatch.setattr(fem, "MULTIGRID_COARSE_SIZE", SMALL_COARSE)
     plate = PlateSystem(model, E, NU, T)
     assert isinstance(plate.solver, GridMultigrid) and plate.solver.name == "multigrid"

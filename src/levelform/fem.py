@@ -164,9 +164,13 @@ class AlgebraicMultigridSolver:
         return X.reshape(F.shape)
 
 
-# Free dofs above which "auto" picks the multigrid solver: measured crossover with SuperLU
+# Free dofs from which "auto" picks the multigrid solver: measured crossover with SuperLU
 # (MMD ordering) on the benchmark plates, benchmarks/solve.py --crossover; docs/performance.md.
 MULTIGRID_MIN_FREE = 50_000
+# ... and below which it keeps PARDISO where installed: measured in whole iterations
+# (benchmarks/iteration.py --solver pardiso / multigrid): PARDISO 1.4x faster at 161k
+# unknowns, multigrid 1.5x faster at 231k and 1.4x at 642k; docs/performance.md.
+PARDISO_MAX_FREE = 200_000
 # Multigrid stopping rule inside an optimization (docs/performance.md, tolerance study):
 # relative residual, and estimated compliance error relative to the compliance.
 MULTIGRID_RTOL, MULTIGRID_CTOL = 1e-4, 1e-7
@@ -192,19 +196,22 @@ def make_solver(choice: str, n_free: int, model=None, KE=None, precise: bool = F
     ``multigrid`` (old name ``iterative``): conjugate gradients with levelform's geometric
     multigrid preconditioner, which needs the grid ``model`` and the solid element matrix
     ``KE`` (without them: ``direct``). ``pyamg``: CG with pyamg's algebraic multigrid
-    (optional; else ``multigrid``). ``auto``: below MULTIGRID_MIN_FREE unknowns PARDISO if
-    installed, else SuperLU; from there on multigrid, which is faster and needs a
-    fraction of a factorization's memory (docs/performance.md). ``precise``: the iterative
+    (optional; else ``multigrid``). ``auto``: PARDISO below PARDISO_MAX_FREE unknowns where
+    it is installed, else SuperLU below MULTIGRID_MIN_FREE; above, multigrid, which is then
+    faster and needs a fraction of a factorization's memory (docs/performance.md). ``precise``: the iterative
     solvers stop at a relative residual of PRECISE_RTOL instead of the optimization's
     looser rule (for the one-off analyses that compare or check designs)."""
     note = None
     if choice == "iterative":
         choice = "multigrid"
     if choice == "auto":
-        if n_free >= MULTIGRID_MIN_FREE and model is not None and KE is not None:
+        grid = model is not None and KE is not None
+        if n_free < PARDISO_MAX_FREE and optional_solver_available("pardiso"):
+            choice = "pardiso"
+        elif n_free >= MULTIGRID_MIN_FREE and grid:
             choice = "multigrid"
         else:
-            choice = "pardiso" if optional_solver_available("pardiso") else "direct"
+            choice = "direct"
     if choice == "pardiso":
         try:
             return PardisoSolver()
