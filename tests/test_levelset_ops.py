@@ -248,6 +248,33 @@ def test_narrow_band_reinitialization_keeps_the_full_march_inside_the_band():
     assert np.abs(ext - exact).max() < 0.5 * h  # a distance everywhere again (full march: 0.26 h)
 
 
+def test_narrow_band_reinitialization_in_strips_equals_one_march(monkeypatch):
+    # The march runs in column strips widened by the band (levelset._narrow_march); on a
+    # domain with a re-entrant corner and a hole, strips of 12 columns (the widening then
+    # makes them fewer and wider) and one march must agree closely, with the same nodes
+    # beyond the band. One strip holds no boundary at all.
+    from levelform import levelset as lsmod
+
+    h = 0.5
+    active = np.ones((60, 160), bool)
+    active[30:, 100:] = False
+    active[10:20, 20:30] = False
+    cell_nodes, node_active = grid_arrays(active)
+    lg = LevelSetGrid(node_active, cell_nodes, h, 2 * h)
+    Y, X = np.mgrid[0 : lg.shape[0], 0 : lg.shape[1]] * h
+    phi = np.minimum(np.hypot(X - 15.0, Y - 12.0) - 6.0, np.hypot(X - 38.0, Y - 20.0) - 4.0)
+    phi = phi * (1.0 + 0.2 * np.sin(X))  # same zero contour, not a distance
+    band = 3.0
+    one = lg.reinitialize(phi, band=band)
+    monkeypatch.setattr(lsmod, "REINIT_STRIP_COLUMNS", 12)
+    strips = lg.reinitialize(phi, band=band)
+    a = lg.node_active
+    assert np.all(np.abs(one[a][X[a] > 60.0]) == band)  # the right strips see no boundary
+    # measured 1.3e-8 h: the strips accept nodes of equal distance in another order
+    np.testing.assert_allclose(strips[a], one[a], rtol=0, atol=1e-6 * h)
+    np.testing.assert_array_equal(np.abs(strips[a]) == band, np.abs(one[a]) == band)
+
+
 def test_stiffness_fraction_is_the_area_except_in_separated_saddles():
     rng = np.random.default_rng(3)
     cell_nodes, node_active = grid_arrays(np.ones((30, 40), bool))

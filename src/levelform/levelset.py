@@ -6,6 +6,8 @@ model units). Nodes outside the domain are masked out by ``node_active``.
 """
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
@@ -35,6 +37,9 @@ def separated_saddles(corner_phi: np.ndarray) -> np.ndarray:
     saddle = (neg[:, 0] == neg[:, 2]) & (neg[:, 1] == neg[:, 3]) & (neg[:, 0] != neg[:, 1])
     return saddle & (np.asarray(corner_phi).mean(axis=1) >= 0.0)
 
+
+# Columns per strip of the narrow-band reinitialization (LevelSetGrid._narrow_march).
+REINIT_STRIP_COLUMNS = 400
 
 # Coarse cells that the Helmholtz smoothing length must span when the filter runs on a
 # coarsened grid (LevelSetGrid._build_smoother).
@@ -128,8 +133,8 @@ class LevelSetGrid:
         the active nodes. A design with no boundary is returned unchanged.
 
         ``band`` (a length): march only that far from the contour (scikit-fmm's narrow
-        band; the values inside it are those of the full march) and set the nodes beyond
-        it to +-band, keeping their sign."""
+        band, in strips: the values inside it are those of the full march to 1e-8 h)
+        and set the nodes beyond it to +-band, keeping their sign."""
         a = self.node_active
         vals = phi[a]
         if not (np.any(vals < 0) and np.any(vals > 0)):
@@ -140,11 +145,45 @@ class LevelSetGrid:
             d = skfmm.distance(masked, dx=self.h)
             out[a] = np.ma.getdata(d)[a]
             return out
-        d = skfmm.distance(masked, dx=self.h, narrow=float(band))
-        far = np.ma.getmaskarray(d) & a
-        out[a] = np.ma.getdata(d)[a]
+        dist, far = self._narrow_march(np.ma.getdata(masked), ~a, float(band))
+        far &= a
+        out[a] = dist[a]
         out[far] = np.where(phi[far] < 0.0, -float(band), float(band))
         return out
+
+    def _narrow_march(self, phi: np.ndarray, off: np.ndarray, band: float):
+        """Narrow-band fast marching in strips of about REINIT_STRIP_COLUMNS columns, each
+        widened by the band plus five cells on both sides (so every node of a strip that
+        lies within the band of the boundary sees all of the boundary it is measured from);
+        returns the distances and the mask of nodes beyond the band. scikit-fmm's march
+        over a few strips measured 1.5x faster than over the whole grid (320k and 1.28M
+        cells, docs/performance.md); the values agree with one march to 1e-8 h or better
+        (nodes at equal distance are accepted in another order)."""
+        ny1, nx1 = phi.shape
+        overlap = int(math.ceil(band / self.h)) + 5
+        k = max(1, round(nx1 / REINIT_STRIP_COLUMNS))
+        if k > 1 and nx1 / k < overlap:
+            k = max(1, nx1 // overlap)
+        edges = np.linspace(0, nx1, k + 1).astype(int)
+        dist = np.empty(phi.shape)
+        far = np.ones(phi.shape, bool)
+        for e0, e1 in zip(edges[:-1], edges[1:]):
+            lo, hi = max(0, e0 - overlap), min(nx1, e1 + overlap)
+            sub = np.ascontiguousarray(phi[:, lo:hi])
+            sub_off = np.ascontiguousarray(off[:, lo:hi])
+            vals = sub[~sub_off]
+            core = (slice(None), slice(e0 - lo, e1 - lo))
+            if vals.size and np.any(vals < 0) and np.any(vals > 0):
+                try:
+                    d = skfmm.distance(np.ma.MaskedArray(sub, mask=sub_off), dx=self.h, narrow=band)
+                except ValueError:  # no zero contour among the strip's active nodes
+                    d = None
+                if d is not None:
+                    dist[:, e0:e1] = np.ma.getdata(d)[core]
+                    far[:, e0:e1] = np.ma.getmaskarray(d)[core]
+                    continue
+            dist[:, e0:e1] = sub[core]  # no boundary within reach: every node is beyond the band
+        return dist, far
 
     def extend_distance(self, phi: np.ndarray, band: float) -> np.ndarray:
         """phi of a narrow-band reinitialization (``band``) with the nodes at +-band replaced
