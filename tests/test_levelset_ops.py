@@ -15,7 +15,7 @@ import shapely
 from contourpy import FillType, contour_generator
 from shapely.geometry import Point, Polygon, box
 
-from levelform.levelset import LevelSetGrid, cell_fraction, separated_saddles
+from levelform.levelset import LevelSetGrid, cell_fraction
 
 
 # ---------------------------------------------------------------------------------------
@@ -273,6 +273,14 @@ def test_narrow_band_reinitialization_in_strips_equals_one_march(monkeypatch):
     # measured 1.3e-8 h: the strips accept nodes of equal distance in another order
     np.testing.assert_allclose(strips[a], one[a], rtol=0, atol=1e-6 * h)
     np.testing.assert_array_equal(np.abs(strips[a]) == band, np.abs(one[a]) == band)
+
+
+def separated_saddles(corner_phi):
+    """The rule written out: material in two opposite corners and a corner mean that is not
+    negative (contourpy then draws two separate corner pieces; see the contourpy check)."""
+    neg = corner_phi < 0.0
+    saddle = (neg[:, 0] == neg[:, 2]) & (neg[:, 1] == neg[:, 3]) & (neg[:, 0] != neg[:, 1])
+    return saddle & (corner_phi.mean(axis=1) >= 0.0)
 
 
 def test_stiffness_fraction_is_the_area_except_in_separated_saddles():

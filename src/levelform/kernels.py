@@ -26,6 +26,14 @@ def _crossing(pa, pb):
     return pa / (pa - pb)
 
 
+@njit(cache=True, inline="always")
+def separated_saddle(p0, p1, p2, p3):
+    """Material in two opposite corners that the zero contour keeps apart (the mean of the
+    corners is not negative): the outline has no material link across the cell."""
+    n0, n1, n2, n3 = p0 < 0.0, p1 < 0.0, p2 < 0.0, p3 < 0.0
+    return n0 == n2 and n1 == n3 and n0 != n1 and (p0 + p1 + p2 + p3) >= 0.0
+
+
 @njit(cache=True)
 def corner_area(p0, p1, p2, p3):
     """Area (share of the cell) where phi < 0, phi linear along the edges of a unit cell
@@ -37,8 +45,7 @@ def corner_area(p0, p1, p2, p3):
         return 0.0
     if count == 4:
         return 1.0
-    if n0 == n2 and n1 == n3 and (p0 + p1 + p2 + p3) >= 0.0:
-        # separated saddle: two corner triangles
+    if separated_saddle(p0, p1, p2, p3):  # two corner triangles
         area = 0.0
         ps = (p0, p1, p2, p3)
         for k in range(4):
@@ -96,9 +103,7 @@ def cell_areas(phi_flat, cell_nodes, frac, stiff):
         p3 = phi_flat[cell_nodes[e, 3]]
         a = corner_area(p0, p1, p2, p3)
         frac[e] = a
-        n0, n1, n2, n3 = p0 < 0.0, p1 < 0.0, p2 < 0.0, p3 < 0.0
-        apart = n0 == n2 and n1 == n3 and n0 != n1 and (p0 + p1 + p2 + p3) >= 0.0
-        stiff[e] = 0.0 if apart else a
+        stiff[e] = 0.0 if separated_saddle(p0, p1, p2, p3) else a
 
 
 @njit(cache=True, parallel=True)
@@ -192,10 +197,6 @@ def upwind_step(old, new, vp, vm, pair_x, pair_y, h, dt):
             new[i, j] = old[i, j] - (p * g + q * s) * dt
 
 
-def n_chunks(n_cells: int) -> int:
-    return max(1, -(-n_cells // CHUNK))
-
-
 @njit(cache=True, parallel=True)
 def near_cells(phi_flat, cell_nodes, reach, out):
     """out[e] = True where some corner of cell e has |phi| <= reach."""
@@ -204,3 +205,8 @@ def near_cells(phi_flat, cell_nodes, reach, out):
         for k in range(1, 4):
             m = min(m, abs(phi_flat[cell_nodes[e, k]]))
         out[e] = m <= reach
+
+
+def n_chunks(n_cells: int) -> int:
+    """Partial sums that trial_area_sum needs for ``n_cells`` cells."""
+    return max(1, -(-n_cells // CHUNK))

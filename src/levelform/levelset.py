@@ -15,6 +15,7 @@ import skfmm
 
 from . import kernels
 
+
 def cell_fraction(corner_phi: np.ndarray) -> np.ndarray:
     """Area fraction of each cell where phi < 0, for corner values ``(n, 4)`` in local order.
 
@@ -27,15 +28,6 @@ def cell_fraction(corner_phi: np.ndarray) -> np.ndarray:
     out = np.empty(p.shape[0])
     kernels.corner_areas(p, out)
     return out
-
-
-def separated_saddles(corner_phi: np.ndarray) -> np.ndarray:
-    """Cells whose material sits in two opposite corners that the zero contour keeps apart
-    (the mean of the corners is not negative): the outline has no material link across
-    them, so the analysis must not give them one either."""
-    neg = np.asarray(corner_phi) < 0.0
-    saddle = (neg[:, 0] == neg[:, 2]) & (neg[:, 1] == neg[:, 3]) & (neg[:, 0] != neg[:, 1])
-    return saddle & (np.asarray(corner_phi).mean(axis=1) >= 0.0)
 
 
 # Columns per strip of the narrow-band reinitialization (LevelSetGrid._narrow_march).
