@@ -131,13 +131,13 @@ class LevelSetGrid:
         vals = phi[a]
         if not (np.any(vals < 0) and np.any(vals > 0)):
             return phi.copy()
-        masked = np.ma.MaskedArray(np.where(a, phi, 1.0), mask=~a)
+        filled = np.where(a, phi, 1.0)
         out = phi.copy()
         if band is None:
-            d = skfmm.distance(masked, dx=self.h)
+            d = skfmm.distance(np.ma.MaskedArray(filled, mask=~a), dx=self.h)
             out[a] = np.ma.getdata(d)[a]
             return out
-        dist, far = self._narrow_march(np.ma.getdata(masked), ~a, float(band))
+        dist, far = self._narrow_march(filled, ~a, float(band))
         far &= a
         out[a] = dist[a]
         out[far] = np.where(phi[far] < 0.0, -float(band), float(band))

@@ -161,7 +161,7 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
     a = model.node_active
     fab = problem.fabrication
     morph = bool(fab.min_member or fab.min_hole)
-    hole_radius = max(0.6 * st.smoothing, 1.5 * h)
+    hole_radius = _hole_radius(st, h)
 
     saved = checkpoint.load() if checkpoint is not None else None
     if saved is not None:
@@ -268,6 +268,11 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
     )
 
 
+def _hole_radius(st, h: float) -> float:
+    """Radius of a seeded hole: max(0.6 smoothing, 1.5 cells)."""
+    return max(0.6 * st.smoothing, 1.5 * h)
+
+
 def reinit_band(st, h: float) -> float:
     """Width of the band the loop's reinitialization marches (a length).
 
@@ -280,7 +285,7 @@ def reinit_band(st, h: float) -> float:
     spare. (The volume control needs no more: a node at +-band keeps its sign through a
     linearized step, its upwind norms being zero.)"""
     n = max(1, math.ceil(st.step / (0.5 * h)))
-    hole = max(0.6 * st.smoothing, 1.5 * h) + 2.0 * h
+    hole = _hole_radius(st, h) + 2.0 * h
     return max(st.step + 3.0 * math.sqrt(n) * h, hole) + 4.0 * h
 
 
@@ -370,7 +375,7 @@ def _multiplier(phi, ws, vscale, step, target, ls, model, now=None) -> float:
     partial = np.empty(kernels.n_chunks(band.size))
 
     def predicted(lam):
-        # one compiled pass over the band: trial corner values, clamped, and their areas
+        # compiled: the trial node values, clamped, then the areas of the band's cells
         area = kernels.trial_area_sum(float(lam), vscale, step, phi_f, ws_f, grow_f, shrink_f, solid_f, empty_f,
                                       ls.cell_nodes, band, trial, partial)
         return (fixed_sum + area) / n_cells - target
