@@ -33,7 +33,7 @@ def _num(v, digits=5):
 
 def full_table(comparison) -> str:
     """Every field of every method, one method per column."""
-    from levelform.compare import FIELDS
+    from levelform.comparison import FIELDS
 
     names = list(comparison.methods)
     width = max(len(f) for f in FIELDS) + 2
@@ -94,7 +94,7 @@ def markdown_table(comparison) -> str:
 def main(argv=None) -> int:
     sys.path.insert(0, str(ROOT / "src"))
     from levelform import load_problem
-    from levelform.compare import compare_methods, write_comparison
+    from levelform.comparison import compare_methods, write_comparison
     from levelform.methods import METHODS
     from levelform.spec import CAUTION
 

@@ -68,8 +68,8 @@ def run_size(nx: int, ny: int, iterations: int, skip: int, solver: str, save: st
     # slows one iteration's parts together, so the median of these ratios is the steadier
     ratios = [it["total"] / it["solve"] for it in its if it.get("solve")]
     # the system of the last analysed design, for the SuperLU comparison
-    from levelform.grid import build_model
-    from levelform.levelset import LevelSetGrid
+    from levelform.fem.model import build_model
+    from levelform.levelset.operators import LevelSetGrid
 
     model = build_model(problem)
     ls = LevelSetGrid(model.node_active, model.cell_nodes, model.grid.h, model.settings.smoothing)
@@ -89,9 +89,9 @@ def superlu_size(nx: int, save: str) -> dict:
     import scipy.sparse.linalg as spla
     from solve import plate
 
-    from levelform.fem import element_stiffness
-    from levelform.grid import build_model
-    from levelform.multigrid import LatticeAssembler
+    from levelform.fem.elements import element_stiffness
+    from levelform.fem.model import build_model
+    from levelform.fem.multigrid import LatticeAssembler
 
     model = build_model(plate(nx))
     scale = np.load(save)

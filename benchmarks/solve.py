@@ -28,10 +28,12 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "src"))
 
-from levelform import fem  # noqa: E402
-from levelform.fem import Assembler, DirectSolver, element_stiffness  # noqa: E402
-from levelform.grid import build_model  # noqa: E402
-from levelform.multigrid import GridMultigrid, LatticeAssembler  # noqa: E402
+from levelform.fem import solvers as fem  # noqa: E402
+from levelform.fem.assembly import Assembler
+from levelform.fem.elements import element_stiffness  # noqa: E402
+from levelform.fem.model import build_model  # noqa: E402
+from levelform.fem.multigrid import GridMultigrid, LatticeAssembler  # noqa: E402
+from levelform.fem.solvers import DirectSolver  # noqa: E402
 from levelform.spec import Domain, Goal, Load, LoadCase, Material, Method, Problem, Support, Units  # noqa: E402
 
 WIDTH, HEIGHT = 120.0, 60.0

@@ -17,11 +17,18 @@ import shapely
 from shapely.geometry import Point, box
 
 from levelform import load_problem, optimize
-from levelform.analysis import PlateSystem
-from levelform.compare import (ERSATZ, FIELDS, area_fractions, check_methods, compare_methods,
-                               evaluate_crisp, write_comparison)
-from levelform.geometry import domain_polygon
-from levelform.grid import build_model, make_grid
+from levelform.comparison import (
+    ERSATZ,
+    FIELDS,
+    area_fractions,
+    check_methods,
+    compare_methods,
+    evaluate_crisp,
+    write_comparison,
+)
+from levelform.fem.analysis import PlateSystem
+from levelform.fem.model import build_model, make_grid
+from levelform.geometry.shapes import domain_polygon
 from levelform.spec import CAUTION, ProblemError
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
@@ -260,7 +267,7 @@ def test_report_html_is_self_contained(written):
 
 
 def test_report_escapes_problem_text(written):
-    from levelform.report import report_html
+    from levelform.io.report import report_html
 
     comparison, _ = written
     odd = dc.replace(comparison, problem=dc.replace(comparison.problem, name='gusset <b>"A"</b> & co'))
@@ -270,7 +277,7 @@ def test_report_escapes_problem_text(written):
 
 def test_failed_rendering_writes_nothing(tmp_path, monkeypatch, written):
     comparison, _ = written
-    import levelform.report as report
+    import levelform.io.report as report
 
     def broken(*args, **kwargs):
         raise RuntimeError("rendering failed")

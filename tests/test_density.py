@@ -6,11 +6,11 @@ import numpy as np
 import pytest
 import shapely
 
-from levelform.analysis import PlateSystem
-from levelform.geometry import domain_polygon
-from levelform.grid import build_model
+from levelform.fem.analysis import PlateSystem
+from levelform.fem.model import build_model
+from levelform.geometry.shapes import domain_polygon
 from levelform.methods import optimize
-from levelform.problem import parse_problem
+from levelform.problem.reader import parse_problem
 
 
 def mbb(**method):

@@ -15,9 +15,9 @@ import numpy as np
 import pytest
 import shapely
 
-from levelform.geometry import domain_polygon
+from levelform.geometry.shapes import domain_polygon
 from levelform.methods import optimize
-from levelform.problem import parse_problem
+from levelform.problem.reader import parse_problem
 
 
 def cantilever(length=80.0, depth=50.0, cell=1.0, **method):

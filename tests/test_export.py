@@ -14,11 +14,25 @@ import pytest
 from shapely.geometry import MultiPolygon, Point, Polygon, box, shape
 from shapely.geometry.polygon import orient
 
-from levelform.spec import (Domain, Goal, GridInfo, IterationRecord, Load, LoadCase,
-                            Material, Method, Problem, Region, Result, Support, Units)
+from levelform.spec import (
+    CAUTION,
+    Domain,
+    Goal,
+    GridInfo,
+    IterationRecord,
+    Load,
+    LoadCase,
+    Material,
+    Method,
+    Problem,
+    Region,
+    Result,
+    Support,
+    Units,
+)
 
 # levelform/__init__.py defines a function named ``export``; fetch the module itself.
-ex = importlib.import_module("levelform.outputs")
+ex = importlib.import_module("levelform.io")
 
 SVG_NS = "{http://www.w3.org/2000/svg}"
 
@@ -168,12 +182,12 @@ def test_summary_keys_and_values(exported):
                              "compliance": "N*mm"}
     assert data["grid"] == {"nx": 80, "ny": 40, "h": 0.5, "x0": 0.0, "y0": 0.0}
     assert data["software"]["name"] == "levelform" and data["software"]["version"]
-    assert data["caution"] == ex.CAUTION
+    assert data["caution"] == CAUTION
     assert data["problem"] == {"name": result.problem.name, "source": "demo.toml"}
     # The summary must carry the metric of the outline itself (definition checked
     # against closed forms in test_geometry.py); the narrowest bar here, left of the bolt
     # hole, is 4 wide, so the reported width cannot exceed that by more than tolerance.
-    from levelform.geometry import smallest_member_width
+    from levelform.geometry.measure import smallest_member_width
     assert data["smallest_member_width"] == pytest.approx(
         smallest_member_width(result.outline), rel=1e-9)
     assert 0.0 < data["smallest_member_width"] <= 4.0 + 0.05
@@ -214,7 +228,7 @@ def test_failed_replace_keeps_old_file_and_leaves_no_temp(tmp_path, monkeypatch)
     def broken_replace(src, dst):
         raise OSError("disk full (simulated)")
 
-    monkeypatch.setattr(ex.os, "replace", broken_replace)
+    monkeypatch.setattr(importlib.import_module("levelform.io.atomic").os, "replace", broken_replace)
     with pytest.raises(OSError, match="simulated"):
         ex.atomic_write_text(target, "new")
     assert target.read_text() == "old"
@@ -245,7 +259,7 @@ def test_export_writes_nothing_if_a_renderer_fails(tmp_path, monkeypatch):
     def broken(result):
         raise RuntimeError("renderer failed (simulated)")
 
-    monkeypatch.setattr(ex, "history_png", broken)
+    monkeypatch.setattr(importlib.import_module("levelform.io.export"), "history_png", broken)
     out = tmp_path / "out"
     with pytest.raises(RuntimeError, match="simulated"):
         ex.export(make_result(), out)

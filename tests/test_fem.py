@@ -20,12 +20,14 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import scipy.sparse.linalg as spla
-
-from levelform.analysis import PlateSystem
-from levelform.fem import Assembler, DirectSolver, elasticity_matrix, element_stiffness
-from levelform.grid import build_model
-from levelform.levelset import cell_fraction
 from reference import parabolic_end_forces
+
+from levelform.fem.analysis import PlateSystem
+from levelform.fem.assembly import Assembler
+from levelform.fem.elements import elasticity_matrix, element_stiffness
+from levelform.fem.model import build_model
+from levelform.fem.solvers import DirectSolver
+from levelform.levelset.operators import cell_fraction
 from levelform.spec import Domain, Goal, Load, LoadCase, Material, Method, Problem, Support, Units
 
 
@@ -276,7 +278,17 @@ def test_cantilever_clamped_root_public_path():
 def skfem_displacements(model, scale, E, nu, t, supports_x0, loads, hole_box=None):
     """Same grid solved with scikit-fem (Gustafsson and McBain 2020): Q4 vector elements,
     plane-stress Lame parameters, cell-wise stiffness factor as a DG0 field."""
-    from skfem import Basis, BilinearForm, ElementQuad0, ElementQuad1, ElementVector, MeshQuad, asm, condense, solve
+    from skfem import (
+        Basis,
+        BilinearForm,
+        ElementQuad0,
+        ElementQuad1,
+        ElementVector,
+        MeshQuad,
+        asm,
+        condense,
+        solve,
+    )
     from skfem.helpers import ddot, sym_grad, trace
     from skfem.models.elasticity import lame_parameters
 

@@ -8,7 +8,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from levelform.cli import main
-from levelform.problem import parse_problem
+from levelform.problem.reader import parse_problem
 from levelform.spec import Problem, ProblemError
 
 KEYS = ["units", "material", "domain", "support", "load", "case", "region", "goal", "method", "fabrication",

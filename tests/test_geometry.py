@@ -6,10 +6,21 @@ import pytest
 import shapely
 from shapely.geometry import MultiPolygon, Point, Polygon, box
 
-from levelform.geometry import (domain_polygon, keep_regions, outline_from_levelset,
-                                outline_metrics, region_geometry, smallest_member_width)
-from levelform.spec import (Domain, Goal, GridInfo, LoadCase, Material, Method, Problem,
-                            ProblemError, Region, Units)
+from levelform.geometry.measure import outline_metrics, smallest_member_width
+from levelform.geometry.outline import outline_from_levelset
+from levelform.geometry.shapes import domain_polygon, keep_regions, region_geometry
+from levelform.spec import (
+    Domain,
+    Goal,
+    GridInfo,
+    LoadCase,
+    Material,
+    Method,
+    Problem,
+    ProblemError,
+    Region,
+    Units,
+)
 
 
 def make_problem(outline, holes=(), regions=(), cell=0.1):
@@ -269,7 +280,7 @@ def test_simplification_keeps_the_area_within_half_a_percent():
     # changes by far less than 0.5 % and its vertex count drops.
     import contourpy
 
-    from levelform.geometry import SIMPLIFY
+    from levelform.geometry.outline import SIMPLIFY
 
     grid = GridInfo(nx=120, ny=60, x0=0.0, y0=0.0, h=0.5)
     X, Y = grid_nodes(grid)

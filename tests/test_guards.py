@@ -9,8 +9,8 @@ import numpy as np
 
 import levelform.methods.levelset as levelset_method
 from levelform import load_problem, optimize
-from levelform.analysis import PlateSystem
 from levelform.cli import main
+from levelform.fem.analysis import PlateSystem
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
 

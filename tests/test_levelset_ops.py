@@ -15,7 +15,7 @@ import shapely
 from contourpy import FillType, contour_generator
 from shapely.geometry import Point, Polygon, box
 
-from levelform.levelset import LevelSetGrid, cell_fraction
+from levelform.levelset.operators import LevelSetGrid, cell_fraction
 
 
 # ---------------------------------------------------------------------------------------
@@ -171,7 +171,7 @@ def test_compiled_loops_give_the_same_bits_on_one_thread_and_on_all():
     # count must not change a result (a run is reproducible on any machine).
     import numba
 
-    from levelform import kernels
+    from levelform.levelset import kernels
 
     h = 0.5
     lg, _ = l_shaped_grid(h, 4 * h)
@@ -204,7 +204,7 @@ def test_compiled_loops_give_the_same_bits_on_one_thread_and_on_all():
 def test_volume_control_trial_areas_equal_the_areas_of_the_trial_level_set():
     # The multiplier's compiled evaluation (kernels.trial_area_sum) against the cut-cell
     # areas (checked against contourpy above) of the linearized update written out.
-    from levelform import kernels
+    from levelform.levelset import kernels
 
     h = 0.5
     lg, _ = l_shaped_grid(h, 4 * h)
@@ -253,7 +253,7 @@ def test_narrow_band_reinitialization_in_strips_equals_one_march(monkeypatch):
     # domain with a re-entrant corner and a hole, strips of 12 columns (the widening then
     # makes them fewer and wider) and one march must agree closely, with the same nodes
     # beyond the band. One strip holds no boundary at all.
-    from levelform import levelset as lsmod
+    from levelform.levelset import operators as lsmod
 
     h = 0.5
     active = np.ones((60, 160), bool)

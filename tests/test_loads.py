@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from levelform.analysis import PlateSystem
-from levelform.grid import build_model
+from levelform.fem.analysis import PlateSystem
+from levelform.fem.model import build_model
 from levelform.spec import Domain, Goal, Load, LoadCase, Material, Method, Problem, Support, Units
 
 

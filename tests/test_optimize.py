@@ -9,7 +9,7 @@ import pytest
 import shapely
 
 from levelform import load_problem, optimize
-from levelform.geometry import domain_polygon
+from levelform.geometry.shapes import domain_polygon
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
 
@@ -143,7 +143,7 @@ def test_min_member_and_min_hole_are_honoured():
 def test_mbb_outline_checked_on_a_body_fitted_mesh(mbb_fine):
     # What is exported is what was checked: the outline re-analysed on a body-fitted mesh of
     # quadratic triangles agrees with the grid figure within 5 %.
-    from levelform.verify import verify_outline
+    from levelform.bodyfitted.check import verify_outline
 
     v = verify_outline(mbb_fine.problem, mbb_fine.outline, grid_compliance=mbb_fine.compliance)
     assert v.ok
@@ -154,7 +154,7 @@ def test_level_set_at_most_5_percent_above_density_on_the_benchmark_set(mbb_fine
     # The density-based (SIMP) crisp result is the reference a reviewer asks for; every crisp
     # outline is re-analysed by the same common analysis (grid twice as fine, exact area
     # fractions). Benchmark set: MBB half-beam, cantilever, two-bar, and a plate with openings.
-    from levelform.compare import evaluate_crisp
+    from levelform.comparison import evaluate_crisp
 
     runs = {"mbb_half_beam.toml": mbb_fine, "cantilever.toml": cantilever_coarse, "two_bar.toml": two_bar,
             "plate_with_openings.toml": optimize(_problem("plate_with_openings.toml"))}

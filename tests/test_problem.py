@@ -12,9 +12,9 @@ from pathlib import Path
 import pytest
 from shapely.geometry import Polygon
 
-from levelform import problem as problem_module
 from levelform import resources
-from levelform.problem import load_problem, parse_problem
+from levelform.problem import reader as problem_module
+from levelform.problem.reader import load_problem, parse_problem
 from levelform.spec import (
     Domain,
     Goal,

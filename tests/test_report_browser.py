@@ -35,7 +35,7 @@ import numpy as np
 import pytest
 
 from levelform import load_problem
-from levelform.compare import compare_methods, write_comparison
+from levelform.comparison import compare_methods, write_comparison
 from levelform.spec import CAUTION
 
 CHROMIUM = Path("/usr/bin/chromium")

@@ -20,12 +20,20 @@ import pytest
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
-from levelform import fem
-from levelform.analysis import PlateSystem
-from levelform.fem import DirectSolver, PardisoSolver, element_stiffness, make_solver
-from levelform.grid import build_model
-from levelform.multigrid import (GridMultigrid, LatticeAssembler, _Operator, element_bound, lanczos_max,
-                                 model_lattice, pcg)
+from levelform.fem import solvers as fem
+from levelform.fem.analysis import PlateSystem
+from levelform.fem.elements import element_stiffness
+from levelform.fem.model import build_model
+from levelform.fem.multigrid import (
+    GridMultigrid,
+    LatticeAssembler,
+    _Operator,
+    element_bound,
+    lanczos_max,
+    model_lattice,
+    pcg,
+)
+from levelform.fem.solvers import DirectSolver, PardisoSolver, make_solver
 from levelform.spec import Domain, Goal, Load, LoadCase, Material, Method, Problem, Support, Units
 
 E, NU, T = 2.0, 0.3, 1.5
@@ -259,7 +267,7 @@ def test_automatic_choice_by_size_and_without_the_optional_solvers(monkeypatch):
 def test_no_direct_fallback_above_the_size_limit(monkeypatch):
     # Above DIRECT_FALLBACK_MAX unknowns a failed CG is reported, not handed to a
     # factorization that may not fit in memory; the loop turns it into a numerical failure.
-    from levelform import multigrid
+    from levelform.fem import multigrid
 
     model = make_model()
     scale = design(model)

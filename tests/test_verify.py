@@ -22,15 +22,28 @@ import math
 import ezdxf
 import numpy as np
 import pytest
+from reference import parabolic_end_forces
 from shapely.geometry import MultiPolygon, Point, Polygon, box
 
 import levelform
-from reference import parabolic_end_forces
-from levelform.analysis import PlateSystem
-from levelform.grid import build_model
-from levelform.spec import (CAUTION, Domain, Goal, Load, LoadCase, Material, Method, Problem,
-                            ProblemError, Support, Units)
-from levelform.verify import read_outline, verify_outline, write_verification
+from levelform.bodyfitted.check import verify_outline
+from levelform.fem.analysis import PlateSystem
+from levelform.fem.model import build_model
+from levelform.io.outline_read import read_outline
+from levelform.io.verification import write_verification
+from levelform.spec import (
+    CAUTION,
+    Domain,
+    Goal,
+    Load,
+    LoadCase,
+    Material,
+    Method,
+    Problem,
+    ProblemError,
+    Support,
+    Units,
+)
 
 
 def make_problem(outline, cell, supports, loads, *, pads=False, E=1.0, nu=0.3, t=1.0,

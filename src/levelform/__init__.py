@@ -20,7 +20,7 @@ from .spec import ProblemError
 
 def load_problem(path):
     """Read and validate a TOML problem file; raises ProblemError listing every problem."""
-    from .problem import load_problem as _load
+    from .problem.reader import load_problem as _load
 
     return _load(path)
 
@@ -34,6 +34,6 @@ def optimize(problem, progress=None):
 
 def export(result, outdir):
     """Write outlines, figures, history and summary of a Result into ``outdir``."""
-    from .outputs import export as _export
+    from .io.export import export as _export
 
     return _export(result, outdir)

@@ -87,7 +87,8 @@ def _with_method(problem, name):
 def _verify_and_report(problem, outline, outdir: Path, grid_compliance, mesh_size=None) -> dict:
     """Body-fitted re-check of ``outline``; writes verify.json, stress.png, verify.vtu and
     prints the figures, its warnings and its problems. Returns the files written."""
-    from .verify import verify_outline, write_verification
+    from .bodyfitted.check import verify_outline
+    from .io.verification import write_verification
 
     v = verify_outline(problem, outline, mesh_size=mesh_size, grid_compliance=grid_compliance)
     files = write_verification(v, outdir, problem)
@@ -110,10 +111,10 @@ def _verify_and_report(problem, outline, outdir: Path, grid_compliance, mesh_siz
 
 def _solve_and_export(problem, outdir: Path, quiet: bool, overwrite: bool, resume: bool = False,
                       verify: bool = True) -> int:
-    from .checkpoint import CheckpointFile
-    from .grid import resolution_warnings, resolve_settings
+    from .fem.model import resolution_warnings, resolve_settings
+    from .io.checkpoint import CheckpointFile
+    from .io.export import export
     from .methods import optimize
-    from .outputs import export
 
     if outdir.exists() and not outdir.is_dir():
         return _errors([f"-o: {outdir} exists and is not a folder"])
@@ -169,7 +170,7 @@ def _solve_and_export(problem, outdir: Path, quiet: bool, overwrite: bool, resum
 
 
 def cmd_run(args) -> int:
-    from .problem import load_problem
+    from .problem.reader import load_problem
 
     problem = _with_method(load_problem(args.problem), args.method)
     out = Path(args.out) if args.out else Path(args.problem).with_name(f"{Path(args.problem).stem}-results")
@@ -179,8 +180,8 @@ def cmd_run(args) -> int:
 def cmd_verify(args) -> int:
     import json
 
-    from .problem import load_problem
-    from .verify import read_outline
+    from .io.outline_read import read_outline
+    from .problem.reader import load_problem
 
     target = Path(args.target)
     if args.mesh_size is not None and not (args.mesh_size > 0 and args.mesh_size < float("inf")):
@@ -219,8 +220,8 @@ def cmd_verify(args) -> int:
 
 
 def cmd_compare(args) -> int:
-    from .compare import check_methods, compare_methods, write_comparison
-    from .problem import load_problem
+    from .comparison import check_methods, compare_methods, write_comparison
+    from .problem.reader import load_problem
 
     methods = check_methods(args.methods, key="--methods")
     problem = load_problem(args.problem)
@@ -253,8 +254,8 @@ def cmd_compare(args) -> int:
 
 
 def cmd_check(args) -> int:
-    from .grid import build_model, resolution_warnings
-    from .problem import load_problem
+    from .fem.model import build_model, resolution_warnings
+    from .problem.reader import load_problem
     from .resources import estimate_memory_bytes
 
     problem = load_problem(args.problem)
@@ -278,13 +279,13 @@ def cmd_check(args) -> int:
 
 
 def cmd_demo(args) -> int:
-    from .problem import load_problem
+    from .problem.reader import load_problem
 
     folder = Path(args.folder)
     folder.mkdir(parents=True, exist_ok=True)
     text = resources.files("levelform").joinpath("demo/sign_bracket.toml").read_text(encoding="utf-8")
     path = folder / "sign_bracket.toml"
-    from .outputs import atomic_write_text
+    from .io.atomic import atomic_write_text
 
     atomic_write_text(path, text)
     print(f"wrote the demo problem {path}")

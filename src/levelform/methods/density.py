@@ -21,12 +21,13 @@ import time
 import numpy as np
 from scipy.optimize import brentq
 
-from ..analysis import PlateSystem
-from ..filters import cell_average_of_nodes, cell_filter, default_filter_radius, node_average
-from ..geometry import domain_polygon, outline_from_levelset
-from ..grid import build_model
-from ..levelset import cell_fraction
+from ..fem.analysis import PlateSystem
+from ..fem.model import build_model
+from ..geometry.outline import outline_from_levelset
+from ..geometry.shapes import domain_polygon
+from ..levelset.operators import cell_fraction
 from ..spec import IterationRecord, Problem, Result
+from .filters import cell_average_of_nodes, cell_filter, default_filter_radius, node_average
 
 EMIN = 1e-9  # void stiffness relative to solid (modified SIMP)
 MOVE = 0.2  # optimality-criteria move limit on a density per iteration

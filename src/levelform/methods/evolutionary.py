@@ -32,11 +32,11 @@ import time
 
 import numpy as np
 
-from ..analysis import PlateSystem
-from ..filters import cell_centres, cone_weights, default_filter_radius, node_average
-from ..grid import build_model
+from ..fem.analysis import PlateSystem
+from ..fem.model import build_model
 from ..spec import IterationRecord, Problem, Result
 from .density import finish, keep_masks
+from .filters import cell_centres, cone_weights, default_filter_radius, node_average
 
 XMIN = 1e-3  # design variable of a soft cell
 CONVERGE_TOL, HALF_WINDOW = 1e-3, 5  # compliance change over the last 2 x 5 iterations

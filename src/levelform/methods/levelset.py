@@ -17,11 +17,13 @@ from dataclasses import dataclass, fields
 import numpy as np
 from scipy.optimize import brentq
 
-from ..analysis import PlateSystem
-from ..geometry import domain_polygon, fabrication_report, outline_from_levelset
-from ..grid import build_model, load_path_intact
-from .. import kernels
-from ..levelset import LevelSetGrid, perforated_start
+from ..fem.analysis import PlateSystem
+from ..fem.model import build_model, load_path_intact
+from ..geometry.measure import fabrication_report
+from ..geometry.outline import outline_from_levelset
+from ..geometry.shapes import domain_polygon
+from ..levelset import kernels
+from ..levelset.operators import LevelSetGrid, perforated_start
 from ..spec import IterationRecord, Problem, Result
 from ..timing import phase
 

@@ -8,7 +8,7 @@ from __future__ import annotations
 import base64
 from html import escape
 
-from .spec import CAUTION
+from ..spec import CAUTION
 
 _STYLE = """
 body { font-family: system-ui, sans-serif; color: #22303a; background: #ffffff;
@@ -109,15 +109,15 @@ def _bodyfitted_paragraph(comparison) -> str:
 def report_html(comparison, overview_png: bytes | None = None) -> str:
     """The report as one HTML string. ``overview_png`` is the side-by-side figure (rendered
     by :func:`levelform.compare.comparison_png` when not given)."""
-    from .compare import comparison_png
-    from .outputs import design_png, history_png
+    from ..comparison import comparison_png
+    from .figures import design_png, history_png
 
     p = comparison.problem
     u = p.units
     ev = comparison.evaluation
     if overview_png is None:
         overview_png = comparison_png(comparison)
-    from . import __version__
+    from .. import __version__
 
     sections = []
     for m in comparison.methods:

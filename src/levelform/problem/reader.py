@@ -21,8 +21,8 @@ from shapely.geometry import box as _shapely_box
 from shapely.ops import unary_union
 from shapely.validation import explain_validity
 
-from . import resources
-from .spec import (
+from .. import resources
+from ..spec import (
     Domain,
     Fabrication,
     Goal,

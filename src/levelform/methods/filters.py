@@ -13,7 +13,7 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.spatial import cKDTree
 
-from .geometry import domain_polygon
+from ..geometry.shapes import domain_polygon
 
 
 def default_filter_radius(problem) -> float:

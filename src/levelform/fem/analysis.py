@@ -9,9 +9,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .fem import Assembler, centre_strain_operator, elasticity_matrix, element_stiffness, make_solver
-from .grid import Model
-from .timing import phase
+from ..timing import phase
+from .assembly import Assembler
+from .elements import centre_strain_operator, elasticity_matrix, element_stiffness
+from .model import Model
+from .solvers import make_solver
 
 
 @dataclass(frozen=True)

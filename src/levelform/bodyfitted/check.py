@@ -12,23 +12,20 @@ length^2 (``problem.units.stress``). The report is a concept-design aid, not a c
 from __future__ import annotations
 
 import dataclasses
-import json
 import math
-import tempfile
 import time
 from dataclasses import dataclass, field
-from pathlib import Path
 from typing import Optional
 
 import numpy as np
 import shapely
 import shapely.ops
-from shapely.geometry import LineString, MultiPolygon, Point, Polygon
+from shapely.geometry import LineString, Point, Polygon
 from shapely.geometry.polygon import orient
 
-from .geometry import _polygons, domain_polygon
-from .grid import resolve_settings
-from .spec import CAUTION, Problem, ProblemError
+from ..fem.model import resolve_settings
+from ..geometry.shapes import _polygons, domain_polygon
+from ..spec import Problem, ProblemError
 
 # Share by which the body-fitted compliance may differ from the grid's before a warning.
 GRID_DIFFERENCE_WARN = 0.05
@@ -40,8 +37,6 @@ MAX_ELEMENTS = 2_000_000
 RING_DIVISIONS = 32
 # Sub-triangles per edge of the reference triangle for the pad-load quadrature (m^2 points).
 PAD_QUADRATURE = 10
-
-FILES = ("verify.json", "stress.png", "verify.vtu")
 
 
 @dataclass(frozen=True)
@@ -811,242 +806,3 @@ def _peak_warnings(problem, settings, polys, at, mesh_size) -> list[str]:
                        "round the corner or read the figure as indicative")
             break
     return out
-
-
-# --------------------------------------------------------------------------- writing
-
-def verification_record(v: Verification, problem: Problem) -> dict:
-    """What verify.json holds: every figure of ``v``, the units and the caution."""
-    from .outputs import _jsonable, _software_version
-
-    units = problem.units
-    data = v.summary()
-    data.update({
-        "units": {"length": units.length, "force": units.force, "stress": units.stress,
-                  "compliance": units.compliance},
-        "problem": {"name": problem.name, "source": problem.source},
-        "element": "quadratic triangle (6 nodes)" if v.order == 2 else "linear triangle (3 nodes)",
-        "analysis": "linear elastic, plane stress, body-fitted mesh of the exported outline",
-        "software": {"name": "levelform", "version": _software_version()},
-        "caution": CAUTION,
-    })
-    return _jsonable(data)
-
-
-def _sub_triangles(v: Verification) -> np.ndarray:
-    """Linear triangles for drawing: each 6-node triangle split into four."""
-    t = v.triangles
-    if t.shape[1] == 3:
-        return t
-    return np.concatenate([t[:, [0, 3, 5]], t[:, [3, 1, 4]], t[:, [5, 4, 2]], t[:, [3, 4, 5]]])
-
-
-def stress_png(v: Verification, problem: Problem) -> bytes:
-    """Von Mises stress (envelope over load cases) over the mesh, the peak marked, the
-    caution line at the bottom."""
-    from matplotlib.tri import Triangulation
-
-    from .outputs import COLOR_DOMAIN, _figure, _png_bytes
-
-    units = problem.units
-    xy = v.points
-    minx, miny = xy.min(axis=0)
-    maxx, maxy = xy.max(axis=0)
-    w, h = max(maxx - minx, 1e-12), max(maxy - miny, 1e-12)
-    fig_w = 8.0
-    fig_h = min(max(fig_w * 0.8 * h / w + 1.5, 3.2), 10.0)
-    fig = _figure(fig_w, fig_h)
-    ax = fig.add_axes((0.08, 0.15, 0.74, 0.75))
-    cax = fig.add_axes((0.85, 0.15, 0.025, 0.75))
-    tri = Triangulation(xy[:, 0], xy[:, 1], _sub_triangles(v))
-    art = ax.tripcolor(tri, v.von_mises, shading="gouraud", cmap="cividis", rasterized=True)
-    cb = fig.colorbar(art, cax=cax)
-    cb.set_label(f"von Mises stress [{units.stress}]")
-    if v.max_von_mises_at is not None:
-        px, py = v.max_von_mises_at
-        ax.plot([px], [py], marker="o", ms=7, mfc="none", mec="#d62828", mew=1.8, zorder=5)
-        ax.annotate(f"peak {v.max_von_mises:.4g}", (px, py), xytext=(6, 6), textcoords="offset points",
-                    fontsize=8, color="#d62828", zorder=6,
-                    bbox={"boxstyle": "round,pad=0.2", "fc": "white", "ec": "none", "alpha": 0.85})
-    pad = 0.03 * max(w, h)
-    ax.set_xlim(minx - pad, maxx + pad)
-    ax.set_ylim(miny - pad, maxy + pad)
-    ax.set_aspect("equal", adjustable="box")
-    ax.set_facecolor("#ffffff")
-    for spine in ax.spines.values():
-        spine.set_color(COLOR_DOMAIN)
-    ax.set_xlabel(f"x [{units.length}]")
-    ax.set_ylabel(f"y [{units.length}]")
-    comp = "n/a" if v.compliance is None else f"{v.compliance:.5g} {units.compliance}"
-    ax.set_title(f"{problem.name}: body-fitted check, compliance {comp}, "
-                 f"{v.elements} triangles", fontsize=9)
-    if not v.ok:
-        fig.text(0.5, 0.06, "NOT OK: " + v.problems[0][:140], ha="center", fontsize=7, color="#d62828")
-    fig.text(0.5, 0.015, CAUTION, ha="center", va="bottom", fontsize=7, color="#5c677d")
-    return _png_bytes(fig)
-
-
-def _field_name(name: str) -> str:
-    return "".join(ch if ch.isalnum() or ch in "-_" else "_" for ch in str(name))
-
-
-def verification_vtu(v: Verification) -> bytes:
-    """VTK unstructured grid (XML, .vtu): the mesh (6-node or 3-node triangles), point data
-    ``displacement_<case>`` for every case (plus ``displacement`` when there is one case) and
-    nodal ``von_mises``, cell data ``von_mises`` at element centres (envelope over cases)."""
-    import meshio
-
-    pts = np.column_stack([v.points, np.zeros(len(v.points))])
-    cell_type = "triangle6" if v.triangles.shape[1] == 6 else "triangle"
-    point_data = {"von_mises": v.von_mises}
-    for c, name in enumerate(v.case_names):
-        u = np.column_stack([v.displacement[:, :, c], np.zeros(len(v.points))])
-        point_data[f"displacement_{_field_name(name)}"] = u
-        if len(v.case_names) == 1:
-            point_data["displacement"] = u
-    mesh = meshio.Mesh(pts, [(cell_type, v.triangles)], point_data=point_data,
-                       cell_data={"von_mises": [v.element_von_mises]})
-    with tempfile.TemporaryDirectory() as tmp:
-        path = Path(tmp) / "verify.vtu"
-        meshio.write(path, mesh, file_format="vtu")
-        return path.read_bytes()
-
-
-def write_verification(v: Verification, outdir, problem: Problem) -> dict[str, Path]:
-    """Write verify.json, stress.png and verify.vtu into ``outdir`` (created if missing).
-
-    Every file is rendered in memory first, then written atomically, so a failure leaves
-    no half-written file. Returns {file name: path}.
-    """
-    from .outputs import atomic_write_bytes, json_text
-
-    rendered = {
-        "verify.json": json_text(verification_record(v, problem)).encode("utf-8"),
-        "stress.png": stress_png(v, problem),
-        "verify.vtu": verification_vtu(v),
-    }
-    outdir = Path(outdir)
-    outdir.mkdir(parents=True, exist_ok=True)
-    return {name: atomic_write_bytes(outdir / name, data) for name, data in rendered.items()}
-
-
-# --------------------------------------------------------------------------- reading
-
-def read_outline(path):
-    """The material outline stored in a GeoJSON or DXF file, as an oriented MultiPolygon.
-
-    GeoJSON: the feature whose ``role`` is "material" (as levelform writes it), else the
-    union of every Polygon/MultiPolygon in the file. DXF: closed LWPOLYLINE, POLYLINE and
-    CIRCLE entities on layers OUTLINE and HOLES (as levelform writes them), else every
-    closed one; rings nested inside an odd number of others become holes. Raises
-    ProblemError naming the file for anything unreadable.
-    """
-    path = Path(path)
-    if not path.is_file():
-        raise ProblemError(f"{path}: no such file")
-    suffix = path.suffix.lower()
-    if suffix in (".geojson", ".json"):
-        geom = _read_geojson(path)
-    elif suffix == ".dxf":
-        geom = _read_dxf(path)
-    else:
-        raise ProblemError(f"{path}: unknown outline format {path.suffix!r}; use .geojson or .dxf")
-    polys = [orient(p, 1.0) for p in _polygons(geom) if p.area > 0.0]
-    if not polys:
-        raise ProblemError(f"{path}: holds no outline with area")
-    return MultiPolygon(polys)
-
-
-def _read_geojson(path: Path):
-    from shapely.geometry import shape
-
-    try:
-        doc = json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise ProblemError(f"{path}: not a readable GeoJSON file ({exc})") from None
-    if not isinstance(doc, dict) or "type" not in doc:
-        raise ProblemError(f"{path}: not a GeoJSON object (no \"type\")")
-    if doc["type"] == "FeatureCollection":
-        feats = doc.get("features")
-        if not isinstance(feats, list):
-            raise ProblemError(f"{path}: FeatureCollection without a \"features\" list")
-    elif doc["type"] == "Feature":
-        feats = [doc]
-    else:
-        feats = [{"type": "Feature", "properties": {}, "geometry": doc}]
-    areal = [f for f in feats if isinstance(f, dict) and isinstance(f.get("geometry"), dict)
-             and f["geometry"].get("type") in ("Polygon", "MultiPolygon")]
-    chosen = [f for f in areal if (f.get("properties") or {}).get("role") == "material"] or areal
-    if not chosen:
-        raise ProblemError(f"{path}: no Polygon or MultiPolygon geometry found")
-    geoms = []
-    for k, f in enumerate(chosen):
-        try:
-            g = shape(f["geometry"])
-        except Exception as exc:  # shapely raises several types for malformed coordinates
-            raise ProblemError(f"{path}: feature {k} has malformed coordinates ({exc})") from None
-        if not g.is_valid:
-            raise ProblemError(f"{path}: feature {k} is not a valid polygon ({shapely.is_valid_reason(g)})")
-        geoms.append(g)
-    return shapely.union_all(geoms)
-
-
-def _read_dxf(path: Path):
-    import ezdxf
-    from ezdxf import path as dxf_path
-
-    try:
-        doc = ezdxf.readfile(str(path))
-    except (OSError, ezdxf.DXFError, UnicodeDecodeError) as exc:
-        raise ProblemError(f"{path}: not a readable DXF file ({exc})") from None
-    msp = doc.modelspace()
-
-    def closed(e):
-        t = e.dxftype()
-        if t == "CIRCLE":
-            return True
-        if t == "LWPOLYLINE":
-            return bool(e.closed)
-        if t == "POLYLINE":
-            return bool(e.is_closed) and not (e.is_polygon_mesh or e.is_poly_face_mesh)
-        return False
-
-    ents = [e for e in msp.query("LWPOLYLINE POLYLINE CIRCLE") if closed(e)]
-    ours = [e for e in ents if e.dxf.layer.upper() in ("OUTLINE", "HOLES")]
-    ents = ours or ents
-    if not ents:
-        raise ProblemError(f"{path}: no closed polyline found (expected layers OUTLINE and HOLES)")
-    from ezdxf import bbox
-
-    ext = bbox.extents(ents)
-    size = float(max(ext.size.x, ext.size.y)) if ext.has_data else 1.0
-    polys = []
-    for e in ents:  # arcs (bulges, circles) flattened to 1e-4 of the drawing size
-        try:
-            pts = np.array([(p.x, p.y) for p in dxf_path.make_path(e).flattening(1e-4 * size, segments=16)])
-        except Exception as exc:  # ezdxf path errors on broken entities
-            raise ProblemError(f"{path}: entity {e.dxf.handle} on layer {e.dxf.layer} cannot be read ({exc})") from None
-        poly = Polygon(pts) if len(pts) >= 3 else Polygon()
-        if poly.is_empty or poly.area <= 0.0 or not poly.is_valid:
-            reason = shapely.is_valid_reason(poly) if len(pts) >= 3 else "too few points"
-            raise ProblemError(f"{path}: closed polyline {e.dxf.handle} on layer {e.dxf.layer} is not a simple "
-                               f"ring ({reason})")
-        polys.append(poly)
-    # Nesting depth by containment: even depth -> material, odd -> hole of its parent.
-    order = sorted(range(len(polys)), key=lambda k: -polys[k].area)
-    depth, parent = {}, {}
-    for pos, k in enumerate(order):
-        rep = polys[k].representative_point()
-        cands = [j for j in order[:pos] if polys[j].contains(rep)]
-        parent[k] = min(cands, key=lambda j: polys[j].area) if cands else None
-        depth[k] = 0 if parent[k] is None else depth[parent[k]] + 1
-    shells = []
-    for k in order:
-        if depth[k] % 2 == 0:
-            holes = [polys[j].exterior.coords for j in order if parent[j] == k]
-            shell = Polygon(polys[k].exterior.coords, holes)
-            if not shell.is_valid:
-                raise ProblemError(f"{path}: the rings do not form a valid outline "
-                                   f"({shapely.is_valid_reason(shell)})")
-            shells.append(shell)
-    return shapely.union_all(shells)

@@ -14,7 +14,6 @@ from __future__ import annotations
 
 import math
 
-import numpy as np
 from numba import njit, prange
 
 CHUNK = 4096  # cells per partial sum

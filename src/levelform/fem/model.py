@@ -12,10 +12,11 @@ from dataclasses import dataclass
 import numpy as np
 import shapely
 from scipy import ndimage
-from shapely.geometry import LineString, Point, box as shapely_box
+from shapely.geometry import LineString, Point
+from shapely.geometry import box as shapely_box
 
-from .geometry import domain_polygon, region_geometry
-from .spec import GridInfo, Problem, ProblemError
+from ..geometry.shapes import domain_polygon, region_geometry
+from ..spec import GridInfo, Problem, ProblemError
 
 
 @dataclass(frozen=True)

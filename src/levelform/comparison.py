@@ -18,9 +18,10 @@ from pathlib import Path
 import numpy as np
 import shapely
 
-from .analysis import PlateSystem
-from .geometry import domain_polygon, outline_metrics
-from .grid import build_model
+from .fem.analysis import PlateSystem
+from .fem.model import build_model
+from .geometry.measure import outline_metrics
+from .geometry.shapes import domain_polygon
 from .spec import CAUTION, GridInfo, Problem, ProblemError
 
 # Stiffness ratio of void to solid in the common analysis. Small enough that void carries
@@ -150,7 +151,7 @@ def _bodyfitted(problem, outline, grid_compliance):
     clamped edge the design leaves bare); the compliance is then that of the outline as
     it is held and loaded, which is what the grid analysis sees too."""
     try:
-        from .verify import verify_outline
+        from .bodyfitted.check import verify_outline
 
         out = verify_outline(problem, outline, grid_compliance=grid_compliance)
     except ImportError:
@@ -298,9 +299,8 @@ def comparison_png(comparison: Comparison) -> bytes:
     the method and its crisp compliance; the caution line at the bottom."""
     from matplotlib.patches import PathPatch
 
-    from .outputs import (COLOR_DOMAIN, COLOR_DOMAIN_FILL, COLOR_MATERIAL, _figure,
-                          _mpl_path, _png_bytes)
-    from .geometry import _polygons
+    from .geometry.shapes import _polygons
+    from .io.figures import COLOR_DOMAIN, COLOR_DOMAIN_FILL, COLOR_MATERIAL, _figure, _mpl_path, _png_bytes
 
     problem = comparison.problem
     domain = domain_polygon(problem)
@@ -343,8 +343,8 @@ def write_comparison(comparison: Comparison, outdir) -> dict[str, Path]:
     """Write comparison.json, comparison.csv, comparison.png and report.html into
     ``outdir`` (created if missing). Everything is rendered in memory first and each file
     written atomically, so a failure leaves no half-written file. Returns {name: path}."""
-    from .outputs import atomic_write_bytes, json_text
-    from .report import report_html
+    from .io.atomic import atomic_write_bytes, json_text
+    from .io.report import report_html
 
     overview = comparison_png(comparison)
     rendered = {

@@ -1,0 +1,1 @@
+"""Shapely geometry: the problem's shapes, the outline of a level set, and its measurements."""

@@ -1,0 +1,263 @@
+"""PNG figures of a result: the design over its domain and the history."""
+from __future__ import annotations
+
+import io
+
+import numpy as np
+from shapely.geometry import Point, Polygon
+
+from ..geometry.shapes import _polygons
+from .scene import _length_unit, _rings, _scene, _unit
+from ..spec import CAUTION, Result
+
+# Our own restrained palette.
+COLOR_MATERIAL = "#2f3e46"
+COLOR_DOMAIN = "#8d99ae"
+COLOR_DOMAIN_FILL = "#f4f5f7"
+COLOR_KEEP_SOLID = "#52796f"
+COLOR_KEEP_EMPTY = "#b08968"
+COLOR_SUPPORT = "#386641"
+COLOR_LOAD = "#bc4749"
+
+
+def _support_glyphs(support, s: float, domain: Polygon):
+    """Marker geometry of one support in model coordinates.
+
+    Returns ``(closed, open, label)``: closed polylines, open polylines (each an (n, 2)
+    array) and a label anchor (point, text) or None. A point support is a triangle whose
+    apex sits on the point and whose base faces the restrained direction ("x": base to
+    the left, otherwise below); a single-direction support adds a roller line, "xy" adds
+    ground ticks. Segments and boxes get a wall with ticks on the side outside the domain.
+    """
+    closed, lines, label = [], [], None
+    fix = support.fix
+    if support.kind == "point":
+        p = np.asarray(support.where, dtype=float)
+        n = np.array([-1.0, 0.0]) if fix == "x" else np.array([0.0, -1.0])
+        t = np.array([-n[1], n[0]])
+        closed.append(np.array([p, p + s * n + 0.6 * s * t, p + s * n - 0.6 * s * t]))
+        if fix in ("x", "y"):
+            off = p + 1.3 * s * n
+            lines.append(np.array([off + 0.8 * s * t, off - 0.8 * s * t]))
+        else:
+            base = p + s * n
+            k = np.linspace(-0.6, 0.6, 5)[:, None]
+            starts = base + k * s * t
+            ends = starts + 0.35 * s * (n - t)
+            lines.extend(np.stack([starts, ends], axis=1))
+        return closed, lines, label
+    if support.kind == "segment":
+        a, b = (np.asarray(q, dtype=float) for q in support.where)
+        walls = [(a, b)]
+        lines.append(np.array([a, b]))
+        label = ((a + b) / 2.0, f"fix {fix}")
+    elif support.kind == "box":
+        x0, y0, x1, y1 = (float(v) for v in support.where)
+        corners = np.array([[x0, y0], [x1, y0], [x1, y1], [x0, y1]])
+        closed.append(corners)
+        walls = []
+        label = (np.array([(x0 + x1) / 2, (y0 + y1) / 2]), f"fix {fix}")
+        return closed, lines, label
+    else:
+        return closed, lines, label
+    for a, b in walls:
+        d = _unit(b - a)
+        if d is None:
+            continue
+        nrm = np.array([-d[1], d[0]])
+        mid = (a + b) / 2.0
+        if domain.contains(Point(*(mid + 0.5 * s * nrm))):
+            nrm = -nrm  # ticks go on the side away from the material
+        length = float(np.hypot(*(b - a)))
+        count = int(min(max(length / (0.5 * s), 3), 60))
+        starts = a + np.linspace(0.0, 1.0, count)[:, None] * (b - a)
+        ends = starts + 0.5 * s * (nrm - d)
+        lines.extend(np.stack([starts, ends], axis=1))
+    return closed, lines, label
+
+
+def _load_arrows(load, length: float):
+    """Arrows of one load as (tails, heads) arrays; heads touch the loaded points.
+
+    A segment load gets a row of arrows along the segment. Arrows show direction only.
+    """
+    d = _unit(load.force)
+    if d is None:
+        return np.zeros((0, 2)), np.zeros((0, 2))
+    if load.kind == "segment":
+        a, b = (np.asarray(q, dtype=float) for q in load.where)
+        seg = float(np.hypot(*(b - a)))
+        count = int(min(max(round(seg / (0.4 * length)) + 1, 3), 15))
+        heads = a + np.linspace(0.0, 1.0, count)[:, None] * (b - a)
+    else:
+        heads = np.asarray(load.where, dtype=float).reshape(1, 2)
+    return heads - length * d, heads
+
+
+# --------------------------------------------------------------------------- figures
+
+def _figure(width: float, height: float):
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(width, height))
+    FigureCanvasAgg(fig)
+    return fig
+
+
+def _png_bytes(fig, dpi: int = 150) -> bytes:
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=dpi, metadata={"Software": None})
+    return buf.getvalue()
+
+
+def _mpl_path(polys):
+    from matplotlib.path import Path as MplPath
+
+    verts, codes = [], []
+    for poly in polys:
+        for ring in _rings(poly):
+            pts = ring[:, :2]
+            verts.append(pts)
+            c = np.full(len(pts), MplPath.LINETO, dtype=np.uint8)
+            c[0] = MplPath.MOVETO
+            c[-1] = MplPath.CLOSEPOLY
+            codes.append(c)
+    if not verts:
+        return None
+    return MplPath(np.concatenate(verts), np.concatenate(codes))
+
+
+def design_png(result: Result) -> bytes:
+    """Picture of the design: material over the domain, hatched keep regions, support
+    markers, load arrows (direction only), caution line at the bottom."""
+    from matplotlib.collections import LineCollection
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch, PathPatch
+    from matplotlib.patches import Polygon as MplPolygon
+
+    domain, material, solid, empty, size = _scene(result)
+    problem = result.problem
+    unit = _length_unit(problem)
+    minx, miny, maxx, maxy = domain.bounds
+    w, h = max(maxx - minx, 1e-12), max(maxy - miny, 1e-12)
+    fig_w = 8.0
+    fig_h = min(max(fig_w * 0.75 * h / w + 1.4, 3.0), 10.0)
+    fig = _figure(fig_w, fig_h)
+    ax = fig.add_axes((0.08, 0.14, 0.68, 0.78))
+    s = 0.03 * size
+
+    ax.add_patch(PathPatch(_mpl_path([domain]), facecolor=COLOR_DOMAIN_FILL,
+                           edgecolor=COLOR_DOMAIN, lw=0.8, zorder=1))
+    mp = _mpl_path(material)
+    if mp is not None:
+        ax.add_patch(PathPatch(mp, facecolor=COLOR_MATERIAL, edgecolor="none", zorder=2))
+    for geom, color, hatch in ((solid, COLOR_KEEP_SOLID, "////"),
+                               (empty, COLOR_KEEP_EMPTY, "xxx")):
+        p = _mpl_path(_polygons(geom))
+        if p is not None:
+            ax.add_patch(PathPatch(p, facecolor="none", edgecolor=color, hatch=hatch,
+                                   lw=0.8, zorder=3))
+
+    sup_lines = []
+    for sup in problem.supports:
+        closed, opens, label = _support_glyphs(sup, s, domain)
+        for c in closed:
+            filled = sup.fix == "xy" and sup.kind == "point"
+            ax.add_patch(MplPolygon(c, closed=True, zorder=4, lw=1.0,
+                                    edgecolor=COLOR_SUPPORT,
+                                    facecolor=(COLOR_SUPPORT if filled else
+                                               "white" if sup.kind == "point" else "none"),
+                                    hatch=None if sup.kind == "point" else "\\\\\\"))
+        sup_lines.extend(opens)
+        if label is not None:
+            (lx, ly), text = label
+            ax.annotate(text, (lx, ly), xytext=(3, 3), textcoords="offset points",
+                        fontsize=7, color=COLOR_SUPPORT, zorder=6,
+                        bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none",
+                              "alpha": 0.8})
+    if sup_lines:
+        ax.add_collection(LineCollection(sup_lines, colors=COLOR_SUPPORT, lw=1.0, zorder=4))
+
+    arrow_len = 3.5 * s
+    tails, heads = [], []
+    for load in problem.loads:
+        t, hd = _load_arrows(load, arrow_len)
+        tails.append(t)
+        heads.append(hd)
+        if load.kind == "segment":
+            seg = np.asarray(load.where, dtype=float)
+            ax.plot(seg[:, 0], seg[:, 1], color=COLOR_LOAD, lw=1.2, zorder=5)
+    if tails:
+        t = np.concatenate(tails)
+        hd = np.concatenate(heads)
+        if len(t):
+            d = hd - t
+            ax.quiver(t[:, 0], t[:, 1], d[:, 0], d[:, 1], angles="xy", scale_units="xy",
+                      scale=1.0, color=COLOR_LOAD, width=0.004, zorder=5)
+            allpts = np.concatenate([t, hd])
+            minx, miny = min(minx, allpts[:, 0].min()), min(miny, allpts[:, 1].min())
+            maxx, maxy = max(maxx, allpts[:, 0].max()), max(maxy, allpts[:, 1].max())
+
+    pad = 2.0 * s
+    ax.set_xlim(minx - pad, maxx + pad)
+    ax.set_ylim(miny - pad, maxy + pad)
+    ax.set_aspect("equal", adjustable="box")
+    ax.set_xlabel(f"x [{unit}]")
+    ax.set_ylabel(f"y [{unit}]")
+    ax.set_title(f"{problem.name}: material fraction {result.material_fraction:.3f}",
+                 fontsize=10)
+    handles = [Patch(facecolor=COLOR_MATERIAL, label="material"),
+               Patch(facecolor="none", edgecolor=COLOR_DOMAIN, label="domain")]
+    if not solid.is_empty:
+        handles.append(Patch(facecolor="none", edgecolor=COLOR_KEEP_SOLID, hatch="////",
+                             label="keep solid"))
+    if not empty.is_empty:
+        handles.append(Patch(facecolor="none", edgecolor=COLOR_KEEP_EMPTY, hatch="xxx",
+                             label="keep empty"))
+    if problem.supports:
+        handles.append(Line2D([], [], color=COLOR_SUPPORT, marker="^", ls="none",
+                              label="support"))
+    if problem.loads:
+        handles.append(Line2D([], [], color=COLOR_LOAD, marker=r"$\rightarrow$", ls="none",
+                              markersize=10, label="load (direction)"))
+    ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.02, 1.0), fontsize=8,
+              frameon=False)
+    fig.text(0.5, 0.015, CAUTION, ha="center", va="bottom", fontsize=7, color="#5c677d")
+    return _png_bytes(fig)
+
+
+def history_png(result: Result) -> bytes:
+    """Compliance (log scale if it spans more than 10x) and material fraction with its
+    target against iteration."""
+    fig = _figure(7.0, 4.2)
+    ax = fig.add_axes((0.11, 0.16, 0.75, 0.74))
+    hist = result.history
+    units = result.problem.units
+    if not hist:
+        ax.text(0.5, 0.5, "no iterations recorded", ha="center", va="center",
+                transform=ax.transAxes)
+    else:
+        it = np.array([r.iteration for r in hist], dtype=float)
+        comp = np.array([r.compliance for r in hist], dtype=float)
+        frac = np.array([r.material_fraction for r in hist], dtype=float)
+        target = np.array([r.target_fraction for r in hist], dtype=float)
+        ax.plot(it, comp, color=COLOR_MATERIAL, lw=1.4, label="compliance")
+        good = comp[np.isfinite(comp) & (comp > 0)]
+        if good.size and good.max() > 10.0 * good.min():
+            ax.set_yscale("log")
+        ax2 = ax.twinx()
+        ax2.plot(it, frac, color=COLOR_KEEP_SOLID, lw=1.2, label="material fraction")
+        ax2.plot(it, target, color=COLOR_DOMAIN, lw=1.0, ls="--", label="target fraction")
+        ax2.set_ylabel("material fraction")
+        ax2.set_ylim(0.0, 1.05)
+        lines = ax.get_lines() + ax2.get_lines()
+        ax.legend(lines, [ln.get_label() for ln in lines], loc="upper right", fontsize=8)
+    from matplotlib.ticker import MaxNLocator
+
+    ax.xaxis.set_major_locator(MaxNLocator(integer=True))
+    ax.set_xlabel("iteration")
+    ax.set_ylabel(f"compliance [{units.compliance}]")
+    ax.set_title(f"{result.problem.name}: convergence history", fontsize=10)
+    fig.text(0.5, 0.015, CAUTION, ha="center", va="bottom", fontsize=7, color="#5c677d")
+    return _png_bytes(fig)
