@@ -27,6 +27,7 @@ from levelform.comparison import (
     write_comparison,
 )
 from levelform.fem.analysis import PlateSystem
+from levelform.physics import PlaneStress
 from levelform.fem.model import build_model, make_grid
 from levelform.geometry.shapes import domain_polygon
 from levelform.spec import CAUTION, ProblemError
@@ -52,7 +53,7 @@ def test_full_domain_equals_solid_grid_on_refined_grid():
     fine = dc.replace(p, domain=dc.replace(p.domain, cell=1.0))
     model = build_model(fine)
     m = p.material
-    solid = PlateSystem(model, m.E, m.nu, m.thickness).analyse(np.ones(model.n_cells))
+    solid = PlateSystem(model, PlaneStress(m.E, m.nu, m.thickness)).analyse(np.ones(model.n_cells))
     assert ev["grid_cell"] == 1.0 and ev["refine"] == 2 and ev["ersatz"] == ERSATZ
     assert ev["n_cells"] == model.n_cells
     assert abs(ev["compliance"] - solid.compliance) <= 1e-9 * solid.compliance

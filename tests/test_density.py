@@ -7,6 +7,7 @@ import pytest
 import shapely
 
 from levelform.fem.analysis import PlateSystem
+from levelform.physics import PlaneStress
 from levelform.fem.model import build_model
 from levelform.geometry.shapes import domain_polygon
 from levelform.methods import optimize
@@ -68,7 +69,7 @@ def test_uniform_start_is_eight_times_the_solid_compliance(density_run):
     # so the first iteration's compliance is 1 / (1e-9 + 0.125 (1 - 1e-9)) times the solid
     # one: 8 x to within Emin.
     model = build_model(mbb())
-    solid = PlateSystem(model, 1.0, 0.3, 1.0).analyse(np.ones(model.n_cells)).compliance
+    solid = PlateSystem(model, PlaneStress(1.0, 0.3, 1.0)).analyse(np.ones(model.n_cells)).compliance
     assert solid == pytest.approx(125.88, abs=0.005)
     first = density_run.history[0].compliance
     assert first == pytest.approx(solid / (1e-9 + 0.125 * (1 - 1e-9)), rel=1e-9)

@@ -23,6 +23,7 @@ import scipy.sparse.linalg as spla
 from reference import parabolic_end_forces
 
 from levelform.fem.analysis import PlateSystem
+from levelform.physics import PlaneStress
 from levelform.fem.assembly import Assembler
 from levelform.fem.elements import elasticity_matrix, element_stiffness
 from levelform.fem.model import build_model
@@ -226,7 +227,7 @@ def solve_with_exact_root(h):
     displacements): K_ff u_f = F_f - K_fc u_c with the full matrix from fem.Assembler."""
     p = CANT
     model = build_model(cantilever_problem(h))
-    plate = PlateSystem(model, p["E"], p["nu"], p["t"])
+    plate = PlateSystem(model, PlaneStress(p["E"], p["nu"], p["t"]))
     ones = np.ones(model.n_cells)
     full = Assembler(model.edofs, np.arange(model.n_dof), model.n_dof, plate.KE).matrix(ones).tocsr()
     xy = active_node_xy(model)
@@ -262,7 +263,7 @@ def test_cantilever_clamped_root_public_path():
     # All root dofs fixed through the Support API; build_model + PlateSystem only.
     p = CANT
     model = build_model(cantilever_problem(0.5))
-    state = PlateSystem(model, p["E"], p["nu"], p["t"]).analyse(np.ones(model.n_cells))
+    state = PlateSystem(model, PlaneStress(p["E"], p["nu"], p["t"])).analyse(np.ones(model.n_cells))
     tip = state.displacement[2 * node_id(model, p["L"], 0.0) + 1, 0]
     delta = cantilever_tip_deflection(**p)  # T&G sec. 21 closed form
     # Measured +0.047 %: a fully clamped root differs from the exact root warping only
@@ -345,7 +346,7 @@ def test_displacements_match_scikit_fem(variant):
     if variant != "solid":
         rng = np.random.default_rng(7)
         scale[rng.random(model.n_cells) < 0.3] = 1e-3  # ersatz soft cells
-    U = PlateSystem(model, E, nu, t).analyse(scale).displacement[:, 0]
+    U = PlateSystem(model, PlaneStress(E, nu, t)).analyse(scale).displacement[:, 0]
     xy_sk, u_sk = skfem_displacements(model, scale, E, nu, t, 0.0, nodal, hole)
     xy = active_node_xy(model)
     assert xy.shape == xy_sk.shape
@@ -375,14 +376,14 @@ def test_load_cases_share_one_solve_and_equal_separate_solves():
     model = build_model(make_problem(outline, h, sup, loads, cases, E=E, nu=nu, t=t))
     rng = np.random.default_rng(2)
     scale = np.where(rng.random(model.n_cells) < 0.2, 1e-3, 1.0)
-    plate = PlateSystem(model, E, nu, t)
+    plate = PlateSystem(model, PlaneStress(E, nu, t))
     both = plate.analyse(scale)
     assert plate.solves == 1 and both.displacement.shape == (model.n_dof, 2)
     K = plate.assembler.matrix(scale)
     for c, case in enumerate(cases):
         own = [ld for ld in loads if ld.case == case.name]
         single = build_model(make_problem(outline, h, sup, own, [LoadCase(case.name, 1.0)], E=E, nu=nu, t=t))
-        alone = PlateSystem(single, E, nu, t).analyse(scale)
+        alone = PlateSystem(single, PlaneStress(E, nu, t)).analyse(scale)
         # Linearity (superposition): one multi-column solve equals separate solves (to the
         # rounding of a direct solve of this contrast: SuperLU agrees to 1e-14, PARDISO with
         # its iterative refinement to 5e-11, both measured).
@@ -413,11 +414,11 @@ def test_algebraic_multigrid_solver_matches_scipy_direct_solve():
     root = Support("segment", ((0.0, 0.0), (0.0, 6.0)), "xy", pad=False)
     base = make_problem(rectangle(0, 0, 12, 6), h, [root], loads, E=E, nu=nu, t=t)
     model = build_model(dataclasses.replace(base, method=Method(pads=False, solver="pyamg")))
-    plate = PlateSystem(model, E, nu, t)
+    plate = PlateSystem(model, PlaneStress(E, nu, t))
     assert plate.solver.name == "pyamg"
     # "auto" on a small grid: a direct solver
     auto = dataclasses.replace(base, method=Method(pads=False))
-    assert PlateSystem(build_model(auto), E, nu, t).solver.name in ("direct", "pardiso")
+    assert PlateSystem(build_model(auto), PlaneStress(E, nu, t)).solver.name in ("direct", "pardiso")
     rng = np.random.default_rng(7)
     # Second call is warm-started from the first solution.
     for scale in (np.ones(model.n_cells), np.where(rng.random(model.n_cells) < 0.3, 1e-3, 1.0)):
@@ -451,7 +452,7 @@ def test_small_hole_compliance_kirsch_lame_and_hole_sensitivity():
     weights = (1.0, 0.5)
     cases = [LoadCase("uniaxial", weights[0]), LoadCase("biaxial", weights[1])]
     model = build_model(make_problem(rectangle(0, 0, W, W), h, sup, loads, cases, E=E, nu=nu, t=t))
-    plate = PlateSystem(model, E, nu, t)
+    plate = PlateSystem(model, PlaneStress(E, nu, t))
     solid = plate.analyse(np.ones(model.n_cells))
 
     k = sigma**2 / E

@@ -6,6 +6,7 @@ import numpy as np
 import pytest
 
 from levelform.fem.analysis import PlateSystem
+from levelform.physics import PlaneStress
 from levelform.fem.model import build_model
 from levelform.spec import Domain, Goal, Load, LoadCase, Material, Method, Problem, Support, Units
 
@@ -23,7 +24,7 @@ def _plate(cell, pads, load=None):
 
 def _solid_compliance(problem):
     model = build_model(problem)
-    system = PlateSystem(model, problem.material.E, problem.material.nu, problem.material.thickness)
+    system = PlateSystem(model, PlaneStress(problem.material.E, problem.material.nu, problem.material.thickness))
     return system.analyse(np.ones(model.n_cells)).compliance
 
 

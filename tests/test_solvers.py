@@ -22,6 +22,7 @@ import scipy.sparse.linalg as spla
 
 from levelform.fem import solvers as fem
 from levelform.fem.analysis import PlateSystem
+from levelform.physics import PlaneStress
 from levelform.fem.elements import element_stiffness
 from levelform.fem.model import build_model
 from levelform.fem.multigrid import (
@@ -244,7 +245,7 @@ def test_automatic_choice_by_size_and_without_the_optional_solvers(monkeypatch):
     got = make_solver("auto", model.n_free, model, KE)
     assert isinstance(got, DirectSolver) and got.note is None
     _, ref = reference(model, design(model))
-    assert rel_diff(PlateSystem(model, E, NU, T).analyse(design(model)).displacement[model.free >= 0], ref) <= 1e-8
+    assert rel_diff(PlateSystem(model, PlaneStress(E, NU, T)).analyse(design(model)).displacement[model.free >= 0], ref) <= 1e-8
     # Above the crossover sizes: multigrid, wired through PlateSystem (the cell scale
     # factors reach the coarse grids). Between the two crossovers PARDISO where installed.
     monkeypatch.setattr(fem, "MULTIGRID_MIN_FREE", model.n_free)
@@ -253,7 +254,7 @@ def test_automatic_choice_by_size_and_without_the_optional_solvers(monkeypatch):
         assert isinstance(make_solver("auto", model.n_free, model, KE), PardisoSolver)
     monkeypatch.setattr(fem, "PARDISO_MAX_FREE", model.n_free)
     monkeypatch.setattr(fem, "MULTIGRID_COARSE_SIZE", SMALL_COARSE)
-    plate = PlateSystem(model, E, NU, T)
+    plate = PlateSystem(model, PlaneStress(E, NU, T))
     assert isinstance(plate.solver, GridMultigrid) and plate.solver.name == "multigrid"
     scale = design(model)
     U = plate.analyse(scale).displacement[model.free >= 0]

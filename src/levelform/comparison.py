@@ -128,7 +128,7 @@ def evaluate_crisp(problem: Problem, outline, refine: int = REFINE, ersatz: floa
     frac = area_fractions(model.grid, model.cells, outline)
     scale = ersatz + (1.0 - ersatz) * frac
     mat = problem.material
-    system = PlateSystem(model, mat.E, mat.nu, mat.thickness, precise=True)
+    system = PlateSystem(model, precise=True)
     state = system.analyse(scale)
     domain = domain_polygon(problem)
     area = 0.0 if outline is None or outline.is_empty else float(outline.area)

@@ -23,6 +23,7 @@ import shapely.ops
 from shapely.geometry import LineString, Point, Polygon
 from shapely.geometry.polygon import orient
 
+from ..linalg import sparse_lu
 from ..fem.model import resolve_settings
 from ..geometry.shapes import _polygons, domain_polygon
 from ..spec import Problem, ProblemError
@@ -652,13 +653,10 @@ def _hold_loose_pieces(fit: _Fit, sbasis, fixed, F, load_dofs, problems, warning
 
 def _solve(K, F, fixed) -> np.ndarray:
     """Displacements (n_dof, n_cases), zero at fixed dofs; one factorization for all cases."""
-    from scipy.sparse.linalg import splu
-
     free = ~fixed
     U = np.zeros_like(F)
     try:
-        lu = splu(K[free][:, free].tocsc(), permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0,
-                  options={"SymmetricMode": True})
+        lu = sparse_lu(K[free][:, free].tocsc())
         Uf = lu.solve(F[free])
     except RuntimeError as exc:
         raise ProblemError(f"support: the outline is not held against every rigid-body motion ({exc})") from None

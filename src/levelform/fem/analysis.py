@@ -10,8 +10,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..timing import phase
-from .assembly import Assembler
-from .elements import centre_strain_operator, elasticity_matrix, element_stiffness
+from .assembly import make_assembler
 from .model import Model
 from .solvers import make_solver
 
@@ -25,23 +24,24 @@ class State:
 
 
 class PlateSystem:
-    """Assembles and solves the plate on ``model`` for a cell stiffness scale; ``precise``
-    holds an iterative solver to a tight residual (fem.make_solver)."""
+    """Assembles and solves the plate on ``model`` for a cell stiffness scale.
 
-    def __init__(self, model: Model, E: float, nu: float, thickness: float, precise: bool = False):
+    Parameters
+    ----------
+    model : levelform.fem.model.Model
+    physics : a levelform.physics object (default: the model's own, from its problem)
+    precise : hold an iterative solver to a tight residual (fem.solvers.make_solver)
+    """
+
+    def __init__(self, model: Model, physics=None, precise: bool = False):
         self.model = model
-        self.E, self.nu, self.t = E, nu, thickness
-        self.KE = element_stiffness(E, nu, thickness)
-        from .multigrid import GridMultigrid, LatticeAssembler
-
-        try:  # the same matrices as fem.Assembler for a fraction of its memory and set-up time
-            self.assembler = LatticeAssembler(model, self.KE)
-        except ValueError:  # dofs not numbered in grid order
-            self.assembler = Assembler(model.edofs, model.free, model.n_free, self.KE)
+        self.physics = model.physics if physics is None else physics
+        if self.physics.dofs_per_node != model.dofs_per_node:
+            raise ValueError(f"the model has {model.dofs_per_node} unknowns per node, the physics "
+                             f"{self.physics.name!r} {self.physics.dofs_per_node}")
+        self.KE = self.physics.element_matrix()
+        self.assembler = make_assembler(model, self.KE)
         self.solver = make_solver(model.settings.solver, model.n_free, model=model, KE=self.KE, precise=precise)
-        # The multigrid solver builds its coarse grids from the cell scale factors.
-        self._pass_scale = isinstance(self.solver, GridMultigrid)
-        self._reuse = isinstance(self.assembler, LatticeAssembler)
         self._last = None
         self.solves = 0
         self.clock = None  # a timing.PhaseClock to time assembly, solve and energies
@@ -49,11 +49,11 @@ class PlateSystem:
     def analyse(self, scale: np.ndarray) -> State:
         m = self.model
         with phase(self.clock, "assembly"):
-            # the matrix is not kept past this analysis, so its storage is reused
-            K = self.assembler.matrix(scale, reuse=True) if self._reuse else self.assembler.matrix(scale)
-        extra = {"scale": scale} if self._pass_scale else {}
+            # the matrix is not kept past this analysis, so its storage may be reused
+            K = self.assembler.matrix(scale, reuse=True)
         with phase(self.clock, "solve"):
-            Uf = self.solver.solve(K, m.forces, x0=self._last, **extra)
+            # the cell scale factors go along: a solver that builds coarse grids from them uses them
+            Uf = self.solver.solve(K, m.forces, x0=self._last, scale=scale)
         Uf = Uf.reshape(m.n_free, -1)
         if not np.all(np.isfinite(Uf)):
             raise FloatingPointError("the finite-element solution is not finite")
@@ -64,7 +64,7 @@ class PlateSystem:
             U[m.free >= 0] = Uf
             case_c = np.einsum("ic,ic->c", m.forces, Uf)
             energy = np.empty((m.edofs.shape[0], U.shape[1]))
-            for c in range(U.shape[1]):  # per case: a gather and one (n_cells, 8) @ (8, 8) product
+            for c in range(U.shape[1]):  # per case: a gather and one (n_cells, k) @ (k, k) product
                 ue = U[:, c][m.edofs]
                 energy[:, c] = np.einsum("ei,ei->e", ue @ self.KE, ue)
         return State(
@@ -75,24 +75,16 @@ class PlateSystem:
         )
 
     def energy_density(self, state: State) -> np.ndarray:
-        """Weighted strain-energy density sigma:eps of each cell as if solid (force/length^2)."""
-        h = self.model.grid.h
-        return state.cell_energy @ self.model.case_weights / (self.t * h * h)
+        """Weighted strain-energy density of each cell as if solid (force/length^2)."""
+        return self.physics.energy_density(state.cell_energy, self.model.case_weights, self.model.grid.h)
 
     def hole_sensitivity(self, state: State) -> np.ndarray:
         """Topological derivative of the weighted compliance per unit hole area at each cell
-        centre, (4 s:s - (tr s)^2) / E in plane stress (Novotny and Sokolowski 2013;
-        Allaire et al. 2005): opening a small hole of area a raises compliance by about
-        a * t * value. Uses the solid stress of each cell."""
+        centre (the physics' formula, from the solid stress of each cell): opening a small
+        hole of area a raises compliance by about a * t * value."""
         h = self.model.grid.h
-        B0 = centre_strain_operator(h)
-        D = elasticity_matrix(self.E, self.nu)
-        DB = (D @ B0).T  # (8, 3): cell dofs -> centre stress
         U = state.displacement
         g = np.zeros(self.model.edofs.shape[0])
         for c, w in enumerate(self.model.case_weights):
-            s = U[:, c][self.model.edofs] @ DB  # (n_cells, 3)
-            ss = s[:, 0] ** 2 + s[:, 1] ** 2 + 2.0 * s[:, 2] ** 2
-            tr = s[:, 0] + s[:, 1]
-            g += w * ((4.0 * ss - tr**2) / self.E)
+            g += w * self.physics.topological_derivative(self.physics.centre_stress(U[:, c][self.model.edofs], h))
         return g

@@ -30,6 +30,22 @@ class Assembler:
         self.map = sp.csr_matrix((vals, (slot, cell)), shape=(uniq.size, ne))
         self.n = n_free
 
-    def matrix(self, scale: np.ndarray) -> sp.csc_matrix:
+    def matrix(self, scale: np.ndarray, reuse: bool = False) -> sp.csc_matrix:
+        """The free-dof stiffness for the cell scale factors (``reuse`` is accepted for the
+        assembler interface and has no effect here)."""
         data = self.map @ scale
         return sp.csc_matrix((data, self.indices, self.indptr), shape=(self.n, self.n))
+
+
+def make_assembler(model, KE: np.ndarray):
+    """The assembler for ``model``: the lattice assembler where the grid allows it (it
+    builds no per-cell index arrays: a fraction of the memory and set-up time), else the
+    general one. Both give the same matrix from ``matrix(scale, reuse=...)``."""
+    from .multigrid import LatticeAssembler
+
+    if LatticeAssembler.supports(model):
+        try:
+            return LatticeAssembler(model, KE)
+        except ValueError:  # free dofs not numbered in lattice order
+            pass
+    return Assembler(model.edofs, model.free, model.n_free, KE)

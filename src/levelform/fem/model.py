@@ -16,6 +16,7 @@ from shapely.geometry import LineString, Point
 from shapely.geometry import box as shapely_box
 
 from ..geometry.shapes import domain_polygon, region_geometry
+from ..physics import physics_of, restrained_rank
 from ..spec import GridInfo, Problem, ProblemError
 
 
@@ -96,6 +97,11 @@ class Model:
     settings: Settings
     support_nodes: tuple = ()  # per support: flat node indices it fixes
     load_nodes: tuple = ()  # per load: flat node indices it acts on
+    physics: object = None  # levelform.physics object: unknowns per node, element matrix, ...
+
+    @property
+    def dofs_per_node(self) -> int:
+        return int(self.edofs.shape[1] // 4)
 
     @property
     def n_cells(self) -> int:
@@ -106,6 +112,17 @@ class Model:
         x = g.x0 + g.h * np.arange(g.nx + 1)
         y = g.y0 + g.h * np.arange(g.ny + 1)
         return np.meshgrid(x, y)
+
+
+def element_dofs(corner_nodes: np.ndarray, dofs_per_node: int) -> np.ndarray:
+    """Global dofs (n_cells, 4 * dofs_per_node) of cells with active-node numbers
+    ``corner_nodes`` (n_cells, 4): node n carries dofs dofs_per_node * n + k, and a cell's
+    dofs run node by node, the node's components together."""
+    d = int(dofs_per_node)
+    out = np.empty((corner_nodes.shape[0], 4 * d), np.int64)
+    for k in range(d):
+        out[:, k::d] = d * corner_nodes + k
+    return out
 
 
 def load_path_intact(model: Model, phi: np.ndarray) -> bool:
@@ -224,6 +241,7 @@ def build_model(problem: Problem) -> Model:
     """Discretize ``problem``; raises ProblemError for a grid-level problem (a piece of the
     domain without enough support at this cell size)."""
     settings = resolve_settings(problem)
+    physics = physics_of(problem)
     grid = make_grid(problem)
     nx, ny, h = grid.nx, grid.ny, grid.h
     domain = domain_polygon(problem)
@@ -244,11 +262,9 @@ def build_model(problem: Problem) -> Model:
     node_number = np.full(node_active_flat.size, -1, np.int64)
     node_number[node_active_flat] = np.arange(int(node_active_flat.sum()))
     n_nodes = int(node_active_flat.sum())
-    local = node_number[cell_nodes]
-    edofs = np.empty((cells.size, 8), np.int64)
-    edofs[:, 0::2] = 2 * local
-    edofs[:, 1::2] = 2 * local + 1
-    n_dof = 2 * n_nodes
+    dpn = physics.dofs_per_node
+    edofs = element_dofs(node_number[cell_nodes], dpn)
+    n_dof = dpn * n_nodes
 
     X, Y = np.meshgrid(grid.x0 + h * np.arange(nx + 1), grid.y0 + h * np.arange(ny + 1))
     act_flat = np.flatnonzero(node_active_flat)
@@ -269,10 +285,8 @@ def build_model(problem: Problem) -> Model:
         else:
             idx = _nodes_near(g, xy, tol)
         support_nodes.append(act_flat[idx])
-        if "x" in s.fix:
-            fixed[2 * idx] = True
-        if "y" in s.fix:
-            fixed[2 * idx + 1] = True
+        for k in physics.fixed_components(s.fix):
+            fixed[dpn * idx + k] = True
         if padded:
             pads.append(g.buffer(settings.pad_radius, quad_segs=16))
 
@@ -298,12 +312,12 @@ def build_model(problem: Problem) -> Model:
             idx = _nodes_near(g, xy, tol)
             w = _segment_weights(ld.where, xy, idx)
         load_nodes.append(act_flat[idx])
-        np.add.at(F[:, c], 2 * idx, ld.force[0] * w)
-        np.add.at(F[:, c], 2 * idx + 1, ld.force[1] * w)
+        for k, value in enumerate(physics.nodal_load(ld)):
+            np.add.at(F[:, c], dpn * idx + k, value * w)
         if padded:
             pads.append(g.buffer(settings.pad_radius, quad_segs=16))
 
-    _check_mechanisms(active, cell_nodes, node_number, fixed, xy, grid)
+    _check_mechanisms(active, cell_nodes, node_number, fixed, xy, grid, physics)
 
     free = np.full(n_dof, -1, np.int64)
     free[~fixed] = np.arange(int((~fixed).sum()))
@@ -338,34 +352,31 @@ def build_model(problem: Problem) -> Model:
         settings=settings,
         support_nodes=tuple(support_nodes),
         load_nodes=tuple(load_nodes),
+        physics=physics,
     )
 
 
-def _check_mechanisms(active, cell_nodes, node_number, fixed, xy, grid):
-    """Each edge-connected piece of the grid needs supports that stop all three rigid-body
-    motions (x, y, rotation); pieces touching only at a corner are hinged, so they count
-    as separate."""
+def _check_mechanisms(active, cell_nodes, node_number, fixed, xy, grid, physics):
+    """Each edge-connected piece of the grid needs supports that stop every rigid-body
+    motion of the physics (x, y, rotation in plane stress); pieces touching only at a
+    corner are hinged, so they count as separate."""
     labels, n = ndimage.label(active)  # 4-connectivity: cells sharing an edge
     lab = labels[active]
     problems = []
     scale = max(grid.nx, grid.ny) * grid.h
+    dpn, n_modes = physics.dofs_per_node, physics.n_rigid_modes
     for k in range(1, n + 1):
         nodes = np.unique(node_number[cell_nodes[lab == k].ravel()])
-        rows = []
-        fx = nodes[fixed[2 * nodes]]
-        fy = nodes[fixed[2 * nodes + 1]]
-        if fx.size:
-            rows.append(np.column_stack([np.ones(fx.size), np.zeros(fx.size), -xy[fx, 1] / scale]))
-        if fy.size:
-            rows.append(np.column_stack([np.zeros(fy.size), np.ones(fy.size), xy[fy, 0] / scale]))
-        C = np.vstack(rows) if rows else np.zeros((0, 3))
-        rank = np.linalg.matrix_rank(C, tol=1e-9) if C.size else 0
-        if rank < 3:
+        held = [(nodes[fixed[dpn * nodes + q]], q) for q in range(dpn)]
+        pts = np.concatenate([xy[idx] for idx, _ in held]) / scale
+        comp = np.concatenate([np.full(idx.size, q) for idx, q in held])
+        rank = restrained_rank(physics, pts, comp)
+        if rank < n_modes:
             cx, cy = xy[nodes].mean(axis=0)
             where = f" (the piece of the domain around ({cx:.4g}, {cy:.4g}))" if n > 1 else ""
             problems.append(
                 f"support: the supports leave a rigid-body motion free{where} at this grid "
-                f"(rank {rank} of 3); add a support fixing x, y and rotation"
+                f"(rank {rank} of {n_modes}); add a support fixing x, y and rotation"
                 + ("; at this cell size the domain falls into separate pieces: use a smaller domain.cell" if n > 1 else "")
             )
     if problems:

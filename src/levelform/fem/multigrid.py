@@ -25,12 +25,19 @@ from __future__ import annotations
 import os
 import time
 import warnings
+import weakref
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
 import scipy.sparse as sp
-import scipy.sparse.linalg as spla
+
+from ..linalg import sparse_lu
+
+# Unknowns per node that the lattice tables, prolongations and cell matrices (8 x 8) are
+# written for: the plane-stress physics. Other physics use fem.assembly.Assembler and the
+# direct solvers.
+DOFS_PER_NODE = 2
 
 # Local corner order of a cell (counter-clockwise from lower left), as (x, y) offsets.
 _CORNER = np.array([[0, 0], [1, 0], [1, 1], [0, 1]])
@@ -207,7 +214,14 @@ class LatticeAssembler:
     matrix) that builds no per-cell index arrays: at a million cells it needs a small
     fraction of the memory and set-up time."""
 
+    @staticmethod
+    def supports(model) -> bool:
+        """Whether the model's dofs follow the lattice's numbering (two per node)."""
+        return getattr(model, "dofs_per_node", 2) == DOFS_PER_NODE
+
     def __init__(self, model, KE: np.ndarray):
+        if not self.supports(model):
+            raise ValueError(f"the lattice assembly is written for {DOFS_PER_NODE} unknowns per node")
         self.KE = np.asarray(KE, float)
         self.lattice = model_lattice(model)
         self.assembly = LatticeAssembly(self.lattice)
@@ -307,9 +321,6 @@ def element_bound(KE: np.ndarray) -> float:
     return float(np.linalg.eigvalsh(KE * d[:, None] * d[None, :]).max())
 
 
-_POOL = None
-
-
 def default_threads() -> int:
     """Threads for the large sparse products: the cores this process may use, at most 4
     (the products are bound by memory bandwidth; more threads stop paying off)."""
@@ -320,20 +331,14 @@ def default_threads() -> int:
     return max(1, min(n, 4))
 
 
-def _pool(n: int) -> ThreadPoolExecutor:
-    global _POOL
-    if _POOL is None or _POOL._max_workers < n:
-        _POOL = ThreadPoolExecutor(max_workers=n)
-    return _POOL
-
-
 class _Operator:
-    """A symmetric sparse matrix whose products run on row blocks in threads (scipy's
-    sparse products release the GIL); matrices below PARALLEL_NNZ use one thread."""
+    """A symmetric sparse matrix whose products run on row blocks in the threads of
+    ``pool`` (scipy's sparse products release the GIL); matrices below PARALLEL_NNZ, or
+    without a pool, use one thread."""
 
     PARALLEL_NNZ = 1_000_000
 
-    def __init__(self, A, threads: int = 1):
+    def __init__(self, A, pool: ThreadPoolExecutor | None = None):
         A = sp.csc_matrix(A)
         self.n = A.shape[0]
         # A is symmetric, so its CSC arrays are also the CSR arrays of A (CSR products
@@ -341,7 +346,8 @@ class _Operator:
         self.A = sp.csr_matrix((A.data, A.indices, A.indptr), shape=A.shape)
         self.diag = self.A.diagonal()
         self.blocks = []
-        nt = threads if A.nnz >= self.PARALLEL_NNZ else 1
+        self.pool = pool
+        nt = pool._max_workers if pool is not None and A.nnz >= self.PARALLEL_NNZ else 1
         if nt > 1:
             ip = self.A.indptr
             cut = np.searchsorted(ip, np.linspace(0, A.nnz, nt + 1)).clip(0, self.n)
@@ -361,7 +367,7 @@ class _Operator:
             a, b, blk = item
             out[a:b] = blk @ x
 
-        list(_pool(len(self.blocks)).map(run, self.blocks))
+        list(self.pool.map(run, self.blocks))
         return out
 
 
@@ -397,8 +403,8 @@ class _Level:
     J. Comput. Phys. 188:593-610), or damped Jacobi with omega = 4 / (3 lam_max), the
     classical smoothing weight (2/3 for the 1D Laplacian)."""
 
-    def __init__(self, A, smoother: str, degree: int, lam_max: float | None, threads: int, ratio: float):
-        self.op = _Operator(A, threads)
+    def __init__(self, A, smoother: str, degree: int, lam_max: float | None, pool, ratio: float):
+        self.op = _Operator(A, pool)
         self.dinv = 1.0 / self.op.diag
         lam = lanczos_max(self.op, self.dinv) if lam_max is None else lam_max
         self.lam_max = lam
@@ -466,6 +472,7 @@ class GridMultigrid:
 
     name = "multigrid"
     note = None
+    supports = staticmethod(LatticeAssembler.supports)
 
     def __init__(self, model, KE: np.ndarray, rtol: float = 1e-8, ctol: float = 0.0,
                  coarse_size: int = 50_000, smoother: str = "chebyshev",
@@ -475,11 +482,17 @@ class GridMultigrid:
             raise ValueError(f"smoother: {smoother!r} is not one of 'chebyshev', 'jacobi'")
         if cycle not in ("V", "W"):
             raise ValueError(f"cycle: {cycle!r} is not one of 'V', 'W'")
+        if not self.supports(model):
+            raise ValueError(f"the grid multigrid is written for {DOFS_PER_NODE} unknowns per node")
         t0 = time.perf_counter()
         self.KE = np.asarray(KE, float)
         self.rtol, self.ctol, self.maxiter = float(rtol), float(ctol), int(maxiter)
         self.smoother, self.degree, self.cycle, self.ratio = smoother, int(degree), cycle, float(ratio)
         self.threads = default_threads() if threads is None else max(1, int(threads))
+        # the solver's own threads for the large sparse products (shut down with it)
+        self._pool = ThreadPoolExecutor(max_workers=self.threads) if self.threads > 1 else None
+        if self._pool is not None:
+            weakref.finalize(self, self._pool.shutdown, wait=False)
         lat = model_lattice(model)
         self.lattices = [lat]
         self.coarsenings: list[Coarsening] = []
@@ -560,13 +573,13 @@ class GridMultigrid:
 
     def _cycle(self, K, scale):
         mats = [K] + self.coarse_matrices(K, scale)
-        levels = [_Level(A, self.smoother, self.degree, self.lam_fine if l == 0 else None, self.threads, self.ratio)
+        levels = [_Level(A, self.smoother, self.degree, self.lam_fine if l == 0 else None, self._pool, self.ratio)
                   for l, A in enumerate(mats[:-1])]
         Ac = sp.csc_matrix(mats[-1])
         # A tiny diagonal shift keeps the coarsest factorization regular if P has
         # dependent columns (their null vectors never reach the fine grid).
         Ac = sp.csc_matrix(Ac + sp.diags(1e-12 * Ac.diagonal()))
-        lu = spla.splu(Ac, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0, options={"SymmetricMode": True})
+        lu = sparse_lu(Ac)
         P, R, w_cycle = [c.P for c in self.coarsenings], self.R, self.cycle == "W"
 
         def cycle(b: np.ndarray, l: int = 0) -> np.ndarray:
@@ -581,14 +594,13 @@ class GridMultigrid:
             x += P[l] @ xc
             return lev.smooth(b, x)
 
-        return cycle, (levels[0].op if levels else _Operator(K, self.threads))
+        return cycle, (levels[0].op if levels else _Operator(K, self._pool))
 
     def solve(self, K: sp.csc_matrix, F: np.ndarray, x0=None, scale=None) -> np.ndarray:
         t0 = time.perf_counter()
         F2 = np.asarray(F, float).reshape(K.shape[0], -1)
         if not self.coarsenings:  # a grid this small is solved directly
-            lu = spla.splu(sp.csc_matrix(K), permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0,
-                           options={"SymmetricMode": True})
+            lu = sparse_lu(K)
             X = lu.solve(F2)
             t1 = time.perf_counter()
             self.info = SolveInfo((0,) * F2.shape[1], tuple(np.linalg.norm(F2 - K @ X, axis=0) / np.linalg.norm(F2, axis=0)),
@@ -611,8 +623,7 @@ class GridMultigrid:
             if K.shape[0] > DIRECT_FALLBACK_MAX:  # a factorization this big may not fit in memory
                 raise NotConverged(f"{exc}; too large ({K.shape[0]:,} unknowns) to solve directly instead") from None
             warnings.warn(f"{exc}; solving directly instead", RuntimeWarning, stacklevel=2)
-            lu = spla.splu(sp.csc_matrix(K), permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0,
-                           options={"SymmetricMode": True})
+            lu = sparse_lu(K)
             X = lu.solve(F2)
             R = F2 - K @ X
             self.info = SolveInfo(tuple(its), tuple(np.linalg.norm(R, axis=0) / np.linalg.norm(F2, axis=0)),

@@ -1,9 +1,29 @@
 """Linear solvers for the plate system behind one interface, and the choice among them."""
 from __future__ import annotations
 
+from typing import Protocol
+
 import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
+
+from ..linalg import sparse_lu
+
+
+class LinearSolver(Protocol):
+    """What the analysis asks of a linear solver (no caller asks for a solver's type).
+
+    ``name`` says which solver it is (written into summaries), ``note`` why it differs
+    from the one asked for (or None). ``solve(K, F, x0=None, scale=None)`` returns X with
+    K X = F for one or several right-hand sides; ``x0`` is the previous solution (an
+    iterative solver starts from it), ``scale`` the cell scale factors K was assembled
+    from (a solver that builds coarse grids from them uses them; the others ignore both).
+    """
+
+    name: str
+    note: str | None
+
+    def solve(self, K: sp.csc_matrix, F: np.ndarray, x0=None, scale=None) -> np.ndarray: ...
 
 
 class DirectSolver:
@@ -12,14 +32,8 @@ class DirectSolver:
     name = "direct"
     note = None
 
-    def solve(self, K: sp.csc_matrix, F: np.ndarray, x0=None) -> np.ndarray:
-        lu = spla.splu(
-            K,
-            permc_spec="MMD_AT_PLUS_A",
-            diag_pivot_thresh=0.0,
-            options={"SymmetricMode": True},
-        )
-        return lu.solve(F)
+    def solve(self, K: sp.csc_matrix, F: np.ndarray, x0=None, scale=None) -> np.ndarray:
+        return sparse_lu(K).solve(F)
 
 
 class PardisoSolver:
@@ -38,7 +52,7 @@ class PardisoSolver:
         self._solver = pypardiso.PyPardisoSolver(mtype=2)  # real symmetric positive definite
         self._pattern = None  # (indptr, indices) of the analysed upper triangle
 
-    def solve(self, K: sp.csc_matrix, F: np.ndarray, x0=None) -> np.ndarray:
+    def solve(self, K: sp.csc_matrix, F: np.ndarray, x0=None, scale=None) -> np.ndarray:
         # The upper triangle in CSR is the lower triangle of the symmetric CSC matrix,
         # read row-wise: no copy of the values beyond the triangle itself.
         U = sp.triu(sp.csr_matrix(K), format="csr")
@@ -72,7 +86,7 @@ class AlgebraicMultigridSolver:
         self.rtol = rtol
         self.near_null = near_null
 
-    def solve(self, K, F, x0=None):
+    def solve(self, K, F, x0=None, scale=None):
         import pyamg
 
         ml = pyamg.smoothed_aggregation_solver(K.tocsr(), B=self.near_null, symmetry="symmetric")
@@ -111,6 +125,12 @@ def optional_solver_available(name: str) -> bool:
     return True
 
 
+def _multigrid_supports(model) -> bool:
+    from .multigrid import GridMultigrid
+
+    return GridMultigrid.supports(model)
+
+
 def make_solver(choice: str, n_free: int, model=None, KE=None, precise: bool = False):
     """The linear solver for a plate system of ``n_free`` unknowns; its ``note`` says why
     it differs from the one asked for (an optional library missing), else is None.
@@ -128,8 +148,8 @@ def make_solver(choice: str, n_free: int, model=None, KE=None, precise: bool = F
     note = None
     if choice == "iterative":
         choice = "multigrid"
+    grid = model is not None and KE is not None and _multigrid_supports(model)
     if choice == "auto":
-        grid = model is not None and KE is not None
         if n_free < PARDISO_MAX_FREE and optional_solver_available("pardiso"):
             choice = "pardiso"
         elif n_free >= MULTIGRID_MIN_FREE and grid:
@@ -148,7 +168,7 @@ def make_solver(choice: str, n_free: int, model=None, KE=None, precise: bool = F
         except ImportError:
             note = "solver 'pyamg' is not installed; using 'multigrid'"
             choice = "multigrid"
-    if choice == "multigrid" and model is not None and KE is not None:
+    if choice == "multigrid" and grid:
         from .multigrid import GridMultigrid
 
         rtol, ctol = (PRECISE_RTOL, 0.0) if precise else (MULTIGRID_RTOL, MULTIGRID_CTOL)

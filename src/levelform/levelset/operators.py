@@ -10,9 +10,9 @@ import math
 
 import numpy as np
 import scipy.sparse as sp
-import scipy.sparse.linalg as spla
 import skfmm
 
+from ..linalg import sparse_lu
 from . import kernels
 
 
@@ -54,7 +54,7 @@ def _helmholtz(active_flat: np.ndarray, cell_nodes: np.ndarray, h: float, r: flo
     cols = np.tile(cn, (1, 4)).ravel()
     n = int(active_flat.sum())
     A = sp.csc_matrix(((w[:, None] * AE.ravel()[None, :]).ravel(), (rows, cols)), shape=(n, n))
-    lu = spla.splu(A, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0, options={"SymmetricMode": True})
+    lu = sparse_lu(A)
     # Right-hand side of a cell-wise constant field: h^2 / 4 of each cell to each corner.
     ones = np.repeat(w * (h**2 / 4.0), 4)
     cell_to_node = sp.csr_matrix((ones, (cn.ravel(), np.repeat(np.arange(cn.shape[0]), 4))), shape=(n, cn.shape[0]))

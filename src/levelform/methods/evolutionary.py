@@ -96,7 +96,7 @@ def loaded_cells(model) -> np.ndarray:
     loaded_dof = np.zeros(model.n_dof, bool)
     is_free = model.free >= 0
     loaded_dof[is_free] = np.any(model.forces[model.free[is_free]] != 0.0, axis=1)
-    loaded_node = loaded_dof[0::2] | loaded_dof[1::2]
+    loaded_node = loaded_dof.reshape(-1, model.dofs_per_node).any(axis=1)  # any unknown of the node
     return loaded_node[model.node_number[model.cell_nodes]].any(axis=1)
 
 
@@ -106,7 +106,7 @@ def run(problem: Problem, progress=None) -> Result:
     st = model.settings
     m = problem.method
     mat = problem.material
-    system = PlateSystem(model, mat.E, mat.nu, mat.thickness)
+    system = PlateSystem(model)
     radius = default_filter_radius(problem)
     F = sensitivity_filter(model, radius)
     goal = problem.goal.material

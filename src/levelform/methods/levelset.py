@@ -155,7 +155,7 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
     g = model.grid
     h = g.h
     mat = problem.material
-    system = PlateSystem(model, mat.E, mat.nu, mat.thickness)
+    system = PlateSystem(model)
     system.clock = clock
     ls = LevelSetGrid(model.node_active, model.cell_nodes, h, st.smoothing)
     X, Y = model.node_xy()
