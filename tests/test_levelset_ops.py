@@ -15,7 +15,7 @@ import shapely
 from contourpy import FillType, contour_generator
 from shapely.geometry import Point, Polygon, box
 
-from levelform.levelset.operators import LevelSetGrid, cell_fraction
+from levelform.levelset.operators import LevelSetGrid, cell_fraction, normal_velocity
 
 
 # ---------------------------------------------------------------------------------------
@@ -216,7 +216,7 @@ def test_volume_control_trial_areas_equal_the_areas_of_the_trial_level_set():
     empty = np.full(phi.shape, 1e9)
     band = np.flatnonzero(np.arange(lg.cell_nodes.shape[0]) % 3 != 0)  # any subset of cells
     for lam, vscale, step in [(0.1, 1.3, 2 * h), (-0.4, 0.5, 3 * h), (0.9, 2.0, h)]:
-        v = np.clip((ws - lam) / vscale, -1.0, 1.0)
+        v = normal_velocity(ws, lam, vscale)  # the one velocity formula, checked on its own below
         trial = phi - step * (np.maximum(v, 0.0) * grow + np.minimum(v, 0.0) * shrink)
         trial = np.maximum(np.minimum(trial, solid), -empty)
         ref = cell_fraction(trial.ravel()[lg.cell_nodes[band]]).sum()
@@ -224,6 +224,14 @@ def test_volume_control_trial_areas_equal_the_areas_of_the_trial_level_set():
                                      solid.ravel(), empty.ravel(), lg.cell_nodes, band, np.empty(phi.size),
                                      np.empty(kernels.n_chunks(band.size)))
         assert got == pytest.approx(ref, rel=1e-13)
+
+
+def test_normal_velocity_is_the_clipped_scaled_sensitivity():
+    # V = (w - lambda) / scale clipped to [-1, 1] (docs/method.md): values worked by hand.
+    ws = np.array([[0.0, 1.0, 5.0], [-9.0, 2.0, 1.5]])
+    got = normal_velocity(ws, 1.0, 2.0)
+    assert got.shape == ws.shape
+    assert got.tolist() == [[-0.5, 0.0, 1.0], [-1.0, 0.5, 0.25]]
 
 
 def test_narrow_band_reinitialization_keeps_the_full_march_inside_the_band():

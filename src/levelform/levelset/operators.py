@@ -286,3 +286,24 @@ def perforated_start(X: np.ndarray, Y: np.ndarray, spacing: float, radius: float
     cx = ox + spacing * (np.floor((X - ox) / spacing) + 0.5)
     cy = oy + spacing * (np.floor((Y - oy) / spacing) + 0.5)
     return radius - np.hypot(X - cx, Y - cy)
+
+
+def normal_velocity(ws: np.ndarray, lam: float, vscale: float) -> np.ndarray:
+    """The normal velocity of the level set on the nodes: (ws - lam) / vscale clipped to
+    [-1, 1] (levelform.levelset.kernels.normal_speed, the one definition).
+
+    Parameters
+    ----------
+    ws : nodal smoothed shape sensitivity (strain-energy density), any shape
+    lam : volume multiplier
+    vscale : the running velocity scale (> 0)
+
+    Examples
+    --------
+    >>> normal_velocity(np.array([0.0, 1.0, 5.0]), 1.0, 2.0)
+    array([-0.5,  0. ,  1. ])
+    """
+    w = np.ascontiguousarray(ws, dtype=float)
+    out = np.empty(w.size)
+    kernels.normal_speeds(w.ravel(), float(lam), float(vscale), out)
+    return out.reshape(w.shape)

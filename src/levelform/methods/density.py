@@ -27,7 +27,13 @@ from ..geometry.outline import outline_from_levelset
 from ..geometry.shapes import domain_polygon
 from ..levelset.operators import cell_fraction
 from ..spec import IterationRecord, Problem, Result
-from .filters import cell_average_of_nodes, cell_filter, default_filter_radius, node_average
+from .filters import (
+    cell_average_of_nodes,
+    cell_filter,
+    default_filter_radius,
+    node_average,
+)
+from .finish import build_result
 
 EMIN = 1e-9  # void stiffness relative to solid (modified SIMP)
 MOVE = 0.2  # optimality-criteria move limit on a density per iteration
@@ -112,7 +118,6 @@ def run(problem: Problem, progress=None) -> Result:
     model = build_model(problem)
     st = model.settings
     m = problem.method
-    mat = problem.material
     system = PlateSystem(model)
     radius = default_filter_radius(problem)
     H, Hs = cell_filter(model, radius)
@@ -200,28 +205,13 @@ def finish(problem, model, system, name, design, state, history, converged, stat
     st = model.settings
     goal = problem.goal.material
     phi_out, frac, crisp = crisp_design(model, system, design, goal, st.ersatz, length)
-    dens = np.full(g.ny * g.nx, np.nan)
-    dens[model.cells] = design
     common = {
         "method": name, "goal_material": goal, "iterations": st.iterations, "pads": st.pads,
         "pad_radius": st.pad_radius, "ersatz": st.ersatz, "solver": st.solver,
     }
-    return Result(
-        problem=problem,
-        method=name,
-        outline=outline_from_levelset(phi_out, g, domain_polygon(problem)),
-        compliance=float(state.compliance),
-        material_fraction=float(frac.mean()),
-        iterations=len(history),
-        converged=converged,
-        status=status,
-        seconds=time.perf_counter() - t_start,
-        history=tuple(history),
-        settings={**common, **settings, "solver_used": system.solver.name,
-                **({"solver_note": system.solver.note} if system.solver.note else {})},
-        grid=g,
-        phi=phi_out,
-        density=dens.reshape(g.ny, g.nx),
-        case_compliance={k: float(v) for k, v in zip(model.case_names, state.case_compliance)},
-        crisp_compliance=float(crisp.compliance),
+    return build_result(
+        problem, model, system, name,
+        outline=outline_from_levelset(phi_out, g, domain_polygon(problem)), phi=phi_out, cell_design=design,
+        state=state, material_fraction=frac.mean(), history=history, converged=converged, status=status,
+        settings={**common, **settings}, t_start=t_start, crisp_compliance=crisp.compliance,
     )

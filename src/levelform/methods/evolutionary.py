@@ -105,7 +105,6 @@ def run(problem: Problem, progress=None) -> Result:
     model = build_model(problem)
     st = model.settings
     m = problem.method
-    mat = problem.material
     system = PlateSystem(model)
     radius = default_filter_radius(problem)
     F = sensitivity_filter(model, radius)

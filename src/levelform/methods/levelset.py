@@ -23,9 +23,10 @@ from ..geometry.measure import fabrication_report
 from ..geometry.outline import outline_from_levelset
 from ..geometry.shapes import domain_polygon
 from ..levelset import kernels
-from ..levelset.operators import LevelSetGrid, perforated_start
+from ..levelset.operators import LevelSetGrid, normal_velocity, perforated_start
 from ..spec import IterationRecord, Problem, Result
 from ..timing import phase
+from .finish import build_result
 
 SHRINK, GROW, FLOOR = 0.6, 1.1, 0.1  # step control: on a compliance rise, otherwise, least step
 CONVERGE_TOL, CONVERGE_WINDOW = 1e-3, 5
@@ -154,7 +155,6 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
     st = model.settings
     g = model.grid
     h = g.h
-    mat = problem.material
     system = PlateSystem(model)
     system.clock = clock
     ls = LevelSetGrid(model.node_active, model.cell_nodes, h, st.smoothing)
@@ -164,6 +164,8 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
     fab = problem.fabrication
     morph = bool(fab.min_member or fab.min_hole)
     hole_radius = _hole_radius(st, h)
+    ctx = _Context(model=model, ls=ls, system=system, settings=st, goal=goal, morph=morph, fab=fab,
+                   hole_radius=hole_radius, X=X, Y=Y, clock=clock)
 
     saved = checkpoint.load() if checkpoint is not None else None
     if saved is not None:
@@ -227,7 +229,7 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
                 break
             if it == st.iterations:
                 break
-            _update(S, state, frac, scale, it, model, ls, system, st, goal, morph, fab, hole_radius, X, Y, clock)
+            _update(S, ctx, state, frac, scale, it)
             S.it += 1
             if clock is not None:
                 clock.tick()
@@ -246,26 +248,11 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
     phi_out = np.where(a, ls.extend_distance(phi, reinit_band(st, h)), np.nan)
     domain = domain_polygon(problem)
     outline = outline_from_levelset(phi_out, g, domain)
-    dens = np.full(g.ny * g.nx, np.nan)
-    dens[model.cells] = frac
-    settings = {"method": "levelset", "goal_material": goal, **st.as_dict(), "solver_used": system.solver.name,
-                **({"solver_note": system.solver.note} if system.solver.note else {})}
-    return Result(
-        problem=problem,
-        method="levelset",
-        outline=outline,
-        compliance=float(state.compliance),
-        material_fraction=float(frac.mean()),
-        iterations=len(S.history),
-        converged=converged,
-        status=status,
-        seconds=time.perf_counter() - t_start,
-        history=tuple(S.history),
-        settings=settings,
-        grid=g,
-        phi=phi_out,
-        density=dens.reshape(g.ny, g.nx),
-        case_compliance={n: float(v) for n, v in zip(model.case_names, state.case_compliance)},
+    return build_result(
+        problem, model, system, "levelset",
+        outline=outline, phi=phi_out, cell_design=frac, state=state, material_fraction=frac.mean(),
+        history=S.history, converged=converged, status=status,
+        settings={"method": "levelset", "goal_material": goal, **st.as_dict()}, t_start=t_start,
         fabrication=fabrication_report(outline, domain, fab),
     )
 
@@ -291,8 +278,27 @@ def reinit_band(st, h: float) -> float:
     return max(st.step + 3.0 * math.sqrt(n) * h, hole) + 4.0 * h
 
 
-def _update(S, state, frac, scale, it, model, ls, system, st, goal, morph, fab, hole_radius, X, Y, clock=None):
+@dataclass(frozen=True)
+class _Context:
+    """What stays the same through a run: the model and its operators, the settings."""
+
+    model: object  # fem.model.Model
+    ls: LevelSetGrid
+    system: PlateSystem
+    settings: object  # fem.model.Settings
+    goal: float
+    morph: bool  # fabrication limits asked for
+    fab: object  # spec.Fabrication
+    hole_radius: float
+    X: np.ndarray  # node coordinates
+    Y: np.ndarray
+    clock: object = None  # timing.PhaseClock or None
+
+
+def _update(S, ctx: _Context, state, frac, scale, it):
     """Move the design of iteration ``it`` to the next one (in place on ``S``)."""
+    model, ls, system, st, goal = ctx.model, ctx.ls, ctx.system, ctx.settings, ctx.goal
+    morph, fab, clock = ctx.morph, ctx.fab, ctx.clock
     a = model.node_active
     h = ls.h
     phi = S.phi
@@ -313,10 +319,9 @@ def _update(S, state, frac, scale, it, model, ls, system, st, goal, morph, fab, 
         lam = _multiplier(phi, ws, vscale, S.step, S.target + S.lost, ls, model, now=frac)
     seeding_open = S.goal_reached_at < 0 or it <= min(S.goal_reached_at + 10, st.iterations // 2)
     if st.seed_holes and seeding_open and it - S.last_seed >= SEED_EVERY and it >= SEED_EVERY:
-        phi, lam = _seed_step(S, state, frac, it, model, ls, system, st, hole_radius, X, Y, ws, vscale, phi, lam,
-                              clock)
+        phi, lam = _seed_step(S, ctx, state, frac, it, ws, vscale, phi, lam)
     with phase(clock, "update"):
-        speed = np.clip((ws - lam) / vscale, -1.0, 1.0)
+        speed = normal_velocity(ws, lam, vscale)
         phi = ls.clamp(ls.advect(phi, speed, S.step), model.solid_sdf, model.empty_sdf)
     filtering = morph and S.goal_reached_at >= 0 and it >= S.goal_reached_at + MORPH_AFTER
     with phase(clock, "reinitialization"):
@@ -331,8 +336,10 @@ def _update(S, state, frac, scale, it, model, ls, system, st, goal, morph, fab, 
     S.phi = phi
 
 
-def _seed_step(S, state, frac, it, model, ls, system, st, hole_radius, X, Y, ws, vscale, phi, lam, clock):
+def _seed_step(S, ctx: _Context, state, frac, it, ws, vscale, phi, lam):
     """Open new holes where the topological derivative says so; returns (phi, multiplier)."""
+    model, ls, system, st, clock = ctx.model, ctx.ls, ctx.system, ctx.settings, ctx.clock
+    hole_radius, X, Y = ctx.hole_radius, ctx.X, ctx.Y
     with phase(clock, "hole seeding"):
         g_nodes = ls.smooth_cells(system.hole_sensitivity(state))
         # Compliance cost per unit area of removing material at the boundary: the mean
