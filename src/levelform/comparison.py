@@ -18,6 +18,7 @@ from pathlib import Path
 import numpy as np
 import shapely
 
+from .methods.registry import method_names
 from .fem.analysis import PlateSystem
 from .fem.model import build_model
 from .geometry.measure import outline_metrics
@@ -29,7 +30,7 @@ from .spec import CAUTION, GridInfo, Problem, ProblemError
 # enough that a floating piece of material keeps the direct solve well posed.
 ERSATZ = 1e-6
 REFINE = 2
-DEFAULT_METHODS = ("levelset", "density", "evolutionary")
+DEFAULT_METHODS = method_names()  # every registered method
 
 # Per-method scalar fields, in table order; comparison.csv has these columns (plus one
 # crisp compliance column per load case when there are several).
@@ -127,7 +128,6 @@ def evaluate_crisp(problem: Problem, outline, refine: int = REFINE, ersatz: floa
     model = build_model(fine)
     frac = area_fractions(model.grid, model.cells, outline)
     scale = ersatz + (1.0 - ersatz) * frac
-    mat = problem.material
     system = PlateSystem(model, precise=True)
     state = system.analyse(scale)
     domain = domain_polygon(problem)
@@ -238,15 +238,10 @@ def compare_methods(problem: Problem, methods=DEFAULT_METHODS, progress=None,
 
 # --------------------------------------------------------------------------- records
 
-def _software() -> dict:
-    from . import __version__
-
-    return {"name": "levelform", "version": __version__}
-
-
 def problem_record(problem: Problem) -> dict:
     """The problem's identity and units, as written into comparison.json."""
-    u = problem.units
+    from .io.export import units_record
+
     domain = domain_polygon(problem)
     return {
         "name": problem.name,
@@ -255,19 +250,20 @@ def problem_record(problem: Problem) -> dict:
         "domain_area": domain.area,
         "cell": problem.domain.cell,
         "load_cases": {c.name: c.weight for c in problem.cases},
-        "units": {"length": u.length, "force": u.force, "stress": u.stress,
-                  "compliance": u.compliance},
+        "units": units_record(problem.units),
     }
 
 
 def comparison_record(comparison: Comparison) -> dict:
     """The content of comparison.json (plain values)."""
+    from .io.export import software_record
+
     return {
         "methods": {m: dict(comparison.rows[m]) for m in comparison.methods},
         "problem": problem_record(comparison.problem),
         "evaluation": dict(comparison.evaluation),
         "caution": CAUTION,
-        "software": _software(),
+        "software": software_record(),
     }
 
 
