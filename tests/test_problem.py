@@ -372,6 +372,53 @@ def test_three_mistakes_are_all_reported(tmp_path):
     assert any("did you mean 'thickness'" in m for m in problems)
 
 
+# A hint is offered only for a close spelling. Reference for "close": the similarity of
+# Python's difflib.SequenceMatcher (standard library), checked here beside each case, and
+# Damerau's single-error kinds (Damerau 1964, CACM 7(3)): a wrong, missing or extra letter,
+# or two neighbouring letters swapped.
+def test_far_off_key_gets_no_hint(tmp_path):
+    import difflib
+
+    # "repeat" is no setting: its nearest key "penalty" shares too little to be meant.
+    assert difflib.SequenceMatcher(None, "repeat", "penalty").ratio() < 0.7
+    problems = problems_of(tmp_path, make(method="[method]\nrepeat = 3\n"))
+    (msg,) = [m for m in problems if m.startswith("method.repeat:")]
+    assert "did you mean" not in msg
+    assert msg.startswith("method.repeat: unknown key; valid keys here: name, iterations")
+    # "min_hole" belongs in [goal] or [fabrication]; in [domain] "holes" is not meant.
+    problems = problems_of(tmp_path, make(domain=SECTIONS["domain"] + "min_hole = 3.0\n"))
+    (msg,) = [m for m in problems if m.startswith("domain.min_hole:")]
+    assert "did you mean" not in msg
+
+
+@pytest.mark.parametrize("section,typo,meant", [
+    ("method", "smothing", "smoothing"),  # a missing letter; similarity 0.94
+    ("material", "thicknes", "thickness"),  # a missing letter; similarity 0.94
+    ("method", "stpe", "step"),  # two neighbours swapped; similarity 0.75
+])
+def test_close_typo_gets_a_hint(tmp_path, section, typo, meant):
+    import difflib
+
+    assert difflib.SequenceMatcher(None, typo, meant).ratio() >= 0.75
+    body = {"method": "[method]\n", "material": "[material]\nE = 1.0\nnu = 0.3\n"}[section]
+    problems = problems_of(tmp_path, make(**{section: body + f"{typo} = 8.0\n"}))
+    (msg,) = [m for m in problems if m.startswith(f"{section}.{typo}:")]
+    assert f"did you mean '{meant}'?" in msg
+
+
+def test_one_swap_in_a_short_key_gets_a_hint(tmp_path):
+    import difflib
+
+    # In a three-letter word one swap leaves a similarity of only 2/3 (difflib), yet it
+    # is a single error (Damerau 1964); the hint must still come.
+    assert difflib.SequenceMatcher(None, "fxi", "fix").ratio() < 0.75
+    text = make(support='[[support]]\npoint = [6, 30]\nfxi = "xy"\n\n'
+                        '[[support]]\npoint = [6, 130]\nfix = "xy"\n')
+    problems = problems_of(tmp_path, text)
+    (msg,) = [m for m in problems if m.startswith("support[1].fxi:")]
+    assert "did you mean 'fix'?" in msg
+
+
 def test_malformed_toml_names_line_and_column(tmp_path):
     text = "[material]\nE = 210000.0\nnu = = 0.3\n"
     problems = problems_of(tmp_path, text)
@@ -540,7 +587,7 @@ def test_random_values_in_every_slot_never_crash():
                 data[item] = [{rng.choice(["point", "segment", "box", "fix", "force",
                                            "keep", "circle", "name", "weight"]): value}]
             else:
-                data[rng.choice(list(problem_module._TOP_KEYS))] = value
+                data[rng.choice(list(problem_module.TOP_KEYS))] = value
         try:
             parse_problem(data)
         except ProblemError as exc:

@@ -13,9 +13,8 @@ import numpy as np
 import shapely
 from scipy import ndimage
 from shapely.geometry import LineString, Point
-from shapely.geometry import box as shapely_box
 
-from ..geometry.shapes import domain_polygon, region_geometry
+from ..geometry.shapes import domain_polygon, item_geometry, region_geometry
 from ..physics import physics_of, restrained_rank
 from ..spec import GridInfo, Problem, ProblemError
 
@@ -171,14 +170,6 @@ def signed_distance(geom, X: np.ndarray, Y: np.ndarray) -> np.ndarray:
     return np.where(inside, -d, d)
 
 
-def _support_geometry(s):
-    if s.kind == "point":
-        return Point(s.where)
-    if s.kind == "segment":
-        return LineString(s.where)
-    return shapely_box(*s.where)
-
-
 def _nodes_near(geom, xy: np.ndarray, tol: float) -> np.ndarray:
     """Indices into xy of the nodes within tol of geom; the nearest one if none is."""
     d = shapely.distance(geom, shapely.points(xy[:, 0], xy[:, 1]))
@@ -276,7 +267,7 @@ def build_model(problem: Problem) -> Model:
     pads = []
     support_nodes, load_nodes = [], []
     for s in problem.supports:
-        g = _support_geometry(s)
+        g = item_geometry(s)
         padded = _uses_pad(s, settings)
         if s.kind == "point" and padded:
             idx = _nodes_near(g, xy, settings.pad_radius)

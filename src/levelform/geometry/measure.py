@@ -18,26 +18,66 @@ def _coincides(a: Polygon, b: Polygon, share: float = 0.9) -> bool:
     return inter > share * max(a.area, b.area)
 
 
+def design_holes(geom, domain: Polygon | None = None) -> list[Polygon]:
+    """The openings the design made: the interior rings of ``geom`` that are no hole of
+    the domain itself.
+
+    Parameters
+    ----------
+    geom : Polygon, MultiPolygon or geometry collection
+        The outline.
+    domain : Polygon, optional
+        The design domain with its own holes. An interior ring of ``geom`` is the domain's
+        hole when the two overlap by more than 90 % of the larger area.
+
+    Returns
+    -------
+    list of Polygon
+        One polygon per design hole, in the order of the outline's rings.
+    """
+    domain_holes = [Polygon(r) for r in domain.interiors] if domain is not None else []
+    out = []
+    for p in _polygons(geom):
+        for ring in p.interiors:
+            hp = Polygon(ring)
+            if not any(_coincides(hp, dh) for dh in domain_holes):
+                out.append(hp)
+    return out
+
+
+def outline_holes(geom, domain: Polygon | None = None) -> int:
+    """The number of holes in an outline, the domain's own holes not counted.
+
+    This is the one count of holes that is reported (the command line, summary.json,
+    the comparison); see :func:`design_holes` for what counts.
+
+    Parameters
+    ----------
+    geom : Polygon, MultiPolygon or geometry collection
+        The outline.
+    domain : Polygon, optional
+        The design domain with its own holes.
+
+    Returns
+    -------
+    int
+    """
+    return len(design_holes(geom, domain))
+
+
 def outline_metrics(geom, domain: Polygon, tol=None) -> dict:
     """Size and fabrication figures of an outline.
 
     ``area``; ``outline_length`` (all rings, holes included, so it is the cut length);
-    ``holes`` (interior rings, not counting rings that coincide with a hole of the domain,
-    i.e. overlap it by more than 90 % of the larger area); ``pieces`` (separate polygons);
-    ``smallest_member_width`` (see :func:`smallest_member_width`).
+    ``holes`` (see :func:`outline_holes`: the domain's own holes do not count);
+    ``pieces`` (separate polygons); ``smallest_member_width`` (see
+    :func:`smallest_member_width`).
     """
     polys = _polygons(geom)
-    domain_holes = [Polygon(r) for r in domain.interiors] if domain is not None else []
-    n_holes = 0
-    for p in polys:
-        for ring in p.interiors:
-            hp = Polygon(ring)
-            if not any(_coincides(hp, dh) for dh in domain_holes):
-                n_holes += 1
     return {
         "area": float(sum(p.area for p in polys)),
         "outline_length": float(sum(p.length for p in polys)),
-        "holes": int(n_holes),
+        "holes": outline_holes(geom, domain),
         "pieces": len(polys),
         "smallest_member_width": smallest_member_width(geom, tol),
     }
@@ -108,15 +148,10 @@ def smallest_member_width(geom, tol=None) -> float:
 def smallest_hole_width(geom, domain=None) -> float | None:
     """Diameter of the largest disc that fits in the smallest hole of the design (holes of
     the domain itself are not design holes and are skipped); None when there is no hole."""
-    domain_holes = [Polygon(r) for r in domain.interiors] if domain is not None else []
     widths = []
-    for p in _polygons(geom):
-        for ring in p.interiors:
-            hp = Polygon(ring)
-            if any(_coincides(hp, dh) for dh in domain_holes):
-                continue
-            circle = shapely.maximum_inscribed_circle(hp, tolerance=max(hp.length * 1e-4, 1e-12))
-            widths.append(2.0 * circle.length)
+    for hp in design_holes(geom, domain):
+        circle = shapely.maximum_inscribed_circle(hp, tolerance=max(hp.length * 1e-4, 1e-12))
+        widths.append(2.0 * circle.length)
     return min(widths) if widths else None
 
 

@@ -2,10 +2,12 @@
 from __future__ import annotations
 
 import shapely
-from shapely.geometry import MultiPolygon, Point, Polygon, box
+from shapely.geometry import LineString, MultiPolygon, Point, Polygon, box
 from shapely.geometry.polygon import orient
 
-from ..spec import ProblemError, Region
+from ..spec import Load, ProblemError, Region, Support
+
+__all__ = ["CIRCLE_QUAD_SEGS", "domain_polygon", "item_geometry", "keep_regions", "region_geometry"]
 
 # Segments per quarter circle for circular keep regions; 32 keeps the polygon area within
 # 0.07 % of pi r^2 (area of an inscribed regular 128-gon: (n/2) sin(2 pi/n) r^2).
@@ -57,8 +59,51 @@ def domain_polygon(problem) -> Polygon:
     return orient(poly, sign=1.0)
 
 
-def region_geometry(region: Region) -> Polygon:
-    """The polygon of one keep region: circle (cx, cy, r), box (x0, y0, x1, y1) or polygon."""
+def item_geometry(item: Support | Load):
+    """The place of a support or load as shapely geometry.
+
+    Parameters
+    ----------
+    item : Support or Load
+        Its ``kind`` is "point" (``where`` = (x, y)), "segment" (``where`` = two points)
+        or "box" (``where`` = (x0, y0, x1, y1), supports only).
+
+    Returns
+    -------
+    Point, LineString or Polygon
+        The point, the segment, or the box as a counter-clockwise rectangle.
+    """
+    if item.kind == "point":
+        return Point(item.where)
+    if item.kind == "segment":
+        return LineString(item.where)
+    return box(*item.where)
+
+
+def region_geometry(region: Region, oriented: bool = True) -> Polygon:
+    """The polygon of one keep region.
+
+    Parameters
+    ----------
+    region : Region
+        A circle (cx, cy, r), drawn with ``CIRCLE_QUAD_SEGS`` segments per quarter, a box
+        (x0, y0, x1, y1) or a polygon ((x, y), ...).
+    oriented : bool, optional
+        True (default): the outer ring counter-clockwise (RFC 7946). False: the ring as
+        built (a circle then runs clockwise, a polygon as the user listed it). The area is
+        the same either way, but areas of intersections and unions may differ in the last
+        bit, so the problem checks, written against the shape as built, pass False.
+
+    Returns
+    -------
+    Polygon
+
+    Raises
+    ------
+    ProblemError
+        Naming ``region.key`` for a radius <= 0, an empty box, a polygon that is not
+        simple, an unknown kind or coordinates that are not numbers.
+    """
     w = region.where
     try:
         if region.kind == "circle":
@@ -83,7 +128,7 @@ def region_geometry(region: Region) -> Polygon:
         if isinstance(exc, ProblemError):
             raise
         raise ProblemError(f"{region.key}: bad coordinates {w!r} for a {region.kind}") from exc
-    return orient(geom, sign=1.0)
+    return orient(geom, sign=1.0) if oriented else geom
 
 
 def keep_regions(problem):
