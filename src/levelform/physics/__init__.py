@@ -9,9 +9,9 @@ unknowns per node) is one new module here, not a change in every layer.
 from __future__ import annotations
 
 from .plane_stress import PlaneStress
-from .rigid import restrained_rank
+from .rigid import restrained_modes, restrained_rank
 
-__all__ = ["PlaneStress", "physics_of", "restrained_rank"]
+__all__ = ["PlaneStress", "physics_of", "restrained_modes", "restrained_rank"]
 
 
 def physics_of(problem) -> PlaneStress:

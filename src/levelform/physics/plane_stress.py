@@ -41,7 +41,8 @@ class PlaneStress:
         """Stiffness (8 x 8) of a solid square cell of side ``h`` (independent of h in 2D)."""
         return element_stiffness(self.E, self.nu, self.thickness, h)
 
-    def fixed_components(self, fix: str) -> tuple:
+    @staticmethod
+    def fixed_components(fix: str) -> tuple:
         """Unknowns of a node that a support's ``fix`` ("x", "y" or "xy") holds."""
         return tuple(k for k, c in enumerate("xy") if c in fix)
 
@@ -69,7 +70,8 @@ class PlaneStress:
         tr = s[:, 0] + s[:, 1]
         return (4.0 * ss - tr**2) / self.E
 
-    def rigid_modes(self, xy: np.ndarray) -> np.ndarray:
+    @staticmethod
+    def rigid_modes(xy: np.ndarray) -> np.ndarray:
         """Rigid-body motions at points ``xy`` (n, 2): (n, 2, 3), the modes
         u = (1, 0), (0, 1) and (-y, x)."""
         xy = np.asarray(xy, float).reshape(-1, 2)

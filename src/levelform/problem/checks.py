@@ -16,6 +16,7 @@ from shapely.ops import unary_union
 
 from .. import resources
 from ..geometry.shapes import item_geometry, region_geometry
+from ..physics import PlaneStress, restrained_modes, restrained_rank
 from ..spec import LoadCase, Support
 from .messages import add_error, number_text, point_text, show
 
@@ -194,22 +195,20 @@ def check_rigid_body(supports, domain, bounds, errs):
     xc, yc = 0.5 * (bounds[0] + bounds[2]), 0.5 * (bounds[1] + bounds[3])
     size = max(bounds[2] - bounds[0], bounds[3] - bounds[1])
     size = size if size > 0 else 1.0
-    rows = []
+    xy, comp = [], []
     for s in supports:
         for x, y in _support_points(s, bounds):
-            xs, ys = (x - xc) / size, (y - yc) / size
-            if "x" in s.fix:
-                rows.append([1.0, 0.0, -ys])
-            if "y" in s.fix:
-                rows.append([0.0, 1.0, xs])
-    if not rows:
+            for k in PlaneStress.fixed_components(s.fix):
+                xy.append(((x - xc) / size, (y - yc) / size))
+                comp.append(k)
+    if not comp:
         return
-    A = np.asarray(rows)
-    tol = 1e-9 * max(1.0, math.sqrt(len(rows)))
-    rank = int(np.linalg.matrix_rank(A, tol=tol))
-    if rank >= 3:
+    A = restrained_modes(PlaneStress, np.asarray(xy), np.asarray(comp))  # rows: fixed directions
+    tol = 1e-9 * max(1.0, math.sqrt(A.shape[0]))
+    rank = restrained_rank(PlaneStress, np.asarray(xy), np.asarray(comp), tol=tol)
+    if rank >= PlaneStress.n_rigid_modes:
         return
-    has_x = any(r[0] for r in rows)
+    has_x = 0 in comp
     if rank == 2:
         v = np.linalg.svd(A)[2][-1]
         a, b, c = v
