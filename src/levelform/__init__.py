@@ -32,8 +32,24 @@ def optimize(problem, progress=None):
     return _optimize(problem, progress=progress)
 
 
-def export(result, outdir):
-    """Write outlines, figures, history and summary of a Result into ``outdir``."""
+def export(result, outdir, *, overwrite=False):
+    """Write outlines, figures, history and summary of a Result into ``outdir``.
+
+    Parameters
+    ----------
+    result : Result
+        What :func:`optimize` returned.
+    outdir : str or path-like
+        The folder to write into, created if missing.
+    overwrite : bool, default False
+        A folder that already holds anything is refused (ProblemError naming it) unless
+        this is true; then levelform's files in it are replaced and other files kept.
+
+    Returns
+    -------
+    dict of str to Path
+        {file name: path} of every file written.
+    """
     from .io.export import export as _export
 
-    return _export(result, outdir)
+    return _export(result, outdir, overwrite=overwrite)

@@ -8,6 +8,7 @@ from importlib import resources
 from pathlib import Path
 
 from . import __version__
+from .methods.registry import method_names
 from .spec import CAUTION, ProblemError
 
 EXIT_OK, EXIT_FAIL, EXIT_BAD_INPUT, EXIT_INTERRUPTED = 0, 1, 2, 130
@@ -29,8 +30,8 @@ def _parser() -> argparse.ArgumentParser:
 
     r = sub.add_parser("run", help="optimize a problem file and write outlines, figures and a summary")
     r.add_argument("problem", help="problem file (TOML, see docs/problem-format.md)")
-    r.add_argument("-o", "--out", metavar="OUTDIR", help="output folder (default: <problem name>-results next to the file)")
-    r.add_argument("--method", help="override [method] name: levelset, density or evolutionary")
+    r.add_argument("-o", "--out", metavar="OUTDIR", help="output folder (default: <problem file name>-results next to the file)")
+    r.add_argument("--method", help=f"override [method] name: {', '.join(method_names())}")
     r.add_argument("--overwrite", action="store_true", help="replace the results in an existing output folder")
     r.add_argument("--resume", action="store_true", help="continue an interrupted run from its last checkpoint in OUTDIR")
     r.add_argument("--no-verify", action="store_true", help="skip the body-fitted re-check of the exported outline")
@@ -46,13 +47,15 @@ def _parser() -> argparse.ArgumentParser:
     v.add_argument("-o", "--out", metavar="OUTDIR", help="where to write verify.json, stress.png, verify.vtu "
                    "(default: the results folder, or <outline name>-verify)")
     v.add_argument("--mesh-size", type=float, metavar="LENGTH", help="element size (default: the cell size)")
+    v.add_argument("--overwrite", action="store_true", help="replace verify.json, stress.png and verify.vtu "
+                   "of an earlier check in the output folder")
 
     k = sub.add_parser("compare", help="optimize one problem with several methods and compare their crisp outlines "
                        "by one common analysis")
     k.add_argument("problem", help="problem file (TOML, see docs/problem-format.md)")
     k.add_argument("-o", "--out", metavar="OUTDIR", help="output folder (default: <problem file name>-compare next to the file)")
-    k.add_argument("--methods", default="levelset,density,evolutionary",
-                   help="comma-separated method names (default: levelset,density,evolutionary)")
+    k.add_argument("--methods", default=",".join(method_names()),
+                   help=f"comma-separated method names (default: {','.join(method_names())})")
     k.add_argument("--overwrite", action="store_true", help="replace the results in an existing output folder")
     k.add_argument("-q", "--quiet", action="store_true", help="no per-iteration progress lines")
     return p
@@ -112,6 +115,7 @@ def _verify_and_report(problem, outline, outdir: Path, grid_compliance, mesh_siz
 def _solve_and_export(problem, outdir: Path, quiet: bool, overwrite: bool, resume: bool = False,
                       verify: bool = True) -> int:
     from .fem.model import resolution_warnings, resolve_settings
+    from .geometry import domain_polygon, outline_holes
     from .io.checkpoint import CheckpointFile
     from .io.export import export
     from .methods import optimize
@@ -136,13 +140,22 @@ def _solve_and_export(problem, outdir: Path, quiet: bool, overwrite: bool, resum
         for msg in resolution_warnings(resolve_settings(problem), problem.domain.cell):
             print(f"warning: {msg}", file=sys.stderr)
     result = optimize(problem, progress=None if quiet else _progress_line, checkpoint=checkpoint)
-    files = export(result, outdir)
+    files = export(result, outdir, overwrite=True)  # the folder was checked above; it holds the checkpoint
     interrupted = result.status == "interrupted"
     if verify and not interrupted:
+        from .io.outline_read import read_outline
+
         crisp = result.compliance if result.crisp_compliance is None else result.crisp_compliance
-        files.update(_verify_and_report(problem, result.outline, outdir, crisp, mesh_size=None))
+        # Check the outline as written (rounded coordinates): what `levelform verify OUTDIR` reads.
+        files.update(_verify_and_report(problem, read_outline(files["outline.geojson"]), outdir, crisp,
+                                        mesh_size=None))
     if not interrupted:
         checkpoint.remove()
+    if not verify:  # an earlier check's files belong to another outline
+        from .io.verification import FILES as VERIFY_FILES
+
+        for name in VERIFY_FILES:
+            (outdir / name).unlink(missing_ok=True)
     u = problem.units
     print(
         f"\n{result.status} after {result.iterations} iterations in {result.seconds:.1f} s\n"
@@ -152,7 +165,7 @@ def _solve_and_export(problem, outdir: Path, quiet: bool, overwrite: bool, resum
         + "\n"
         f"  material fraction  {result.material_fraction:.4f} (goal {problem.goal.material:.4f})\n"
         f"  outline area       {result.outline.area:.6g} {u.length}^2, "
-        f"{sum(len(p.interiors) for p in getattr(result.outline, 'geoms', [])):d} holes\n"
+        f"{outline_holes(result.outline, domain_polygon(result.problem)):d} holes\n"
         + (f"  linear solver      {result.settings['solver_used']}\n" if "solver_used" in result.settings else "")
         + f"  results in         {outdir}{os.sep} ({', '.join(sorted(k for k in files if not k.startswith('_')))})"
         f"\n\nCaution: {CAUTION}",
@@ -180,7 +193,8 @@ def cmd_run(args) -> int:
 def cmd_verify(args) -> int:
     import json
 
-    from .io.outline_read import read_outline
+    from .io.outline_read import read_outline_report
+    from .io.verification import FILES as VERIFY_FILES
     from .problem.reader import load_problem
 
     target = Path(args.target)
@@ -212,8 +226,17 @@ def cmd_verify(args) -> int:
         out = Path(args.out) if args.out else outline_file.with_name(f"{outline_file.stem}-verify")
     if args.outline and target.is_dir():
         grid_compliance = None  # an edited outline: the grid figure belongs to another shape
-    outline = read_outline(outline_file)
-    files = _verify_and_report(problem, outline, out, grid_compliance, mesh_size=args.mesh_size)
+    if out.exists() and not out.is_dir():
+        return _errors([f"-o: {out} exists and is not a folder"])
+    earlier = [name for name in VERIFY_FILES if (out / name).exists()]
+    if earlier and not args.overwrite:
+        return _errors([f"{out}: already holds {', '.join(earlier)} of an earlier check; pass --overwrite to "
+                        "replace them, or -o OUTDIR to write the new check elsewhere"])
+    read = read_outline_report(outline_file)
+    print(read.read, flush=True)
+    for w in read.warnings:
+        print(f"warning: {w}", file=sys.stderr)
+    files = _verify_and_report(problem, read.outline, out, grid_compliance, mesh_size=args.mesh_size)
     ok = files.pop("_ok")
     print(f"  results in         {out}{os.sep} ({', '.join(sorted(files))})\n\nCaution: {CAUTION}", flush=True)
     return EXIT_OK if ok else EXIT_FAIL

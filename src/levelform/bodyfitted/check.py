@@ -25,7 +25,7 @@ from shapely.geometry.polygon import orient
 
 from ..linalg import sparse_lu
 from ..fem.model import resolve_settings
-from ..geometry.shapes import _polygons, domain_polygon
+from ..geometry.shapes import _polygons, domain_polygon, item_geometry
 from ..spec import Problem, ProblemError
 
 # Share by which the body-fitted compliance may differ from the grid's before a warning.
@@ -171,16 +171,6 @@ def _parts(geom) -> list:
     return []
 
 
-def _item_geometry(item):
-    """The shapely geometry of a support or load: Point, LineString or box Polygon."""
-    if item.kind == "point":
-        return Point(item.where)
-    if item.kind == "segment":
-        return LineString(item.where)
-    x0, y0, x1, y1 = item.where
-    return shapely.geometry.box(x0, y0, x1, y1)
-
-
 def _pad_h(settings, mesh_size) -> float:
     """Element size inside a pad: the mesh size, at most half the pad radius."""
     return min(mesh_size, 0.5 * settings.pad_radius)
@@ -225,7 +215,7 @@ def _plan(problem, material, settings, mesh_size, tol):
             inner.append(LineString(coords))
 
     for item in list(problem.supports) + list(problem.loads):
-        g = _item_geometry(item)
+        g = item_geometry(item)
         if item.kind == "point":
             p = item.where
             if material.distance(g) <= tol and boundary.distance(g) <= tol:
@@ -515,7 +505,7 @@ def _facet_nodes(fit: _Fit, facets) -> np.ndarray:
 
 
 def _off_message(fit: _Fit, item, what) -> str:
-    d = fit.material.distance(_item_geometry(item))
+    d = fit.material.distance(item_geometry(item))
     return (f"{item.key}: the {what} {_where(item)} lies outside the exported outline "
             f"(nearest material {d:.3g} {fit.unit} away)")
 
@@ -554,7 +544,7 @@ def _held_dofs(fit: _Fit, supports, problems) -> np.ndarray:
             nodes = np.flatnonzero((xy[:, 0] >= x0 - e) & (xy[:, 0] <= x1 + e)
                                    & (xy[:, 1] >= y0 - e) & (xy[:, 1] <= y1 + e))
             if nodes.size == 0:
-                if fit.material.intersects(_item_geometry(s)):
+                if fit.material.intersects(item_geometry(s)):
                     nodes = np.array([_nearest_vertex(fit, ((x0 + x1) / 2, (y0 + y1) / 2))])
                 else:
                     problems.append(_off_message(fit, s, "box") + "; not applied")

@@ -12,7 +12,7 @@ from .figures import design_png, history_png
 from .geojson import outline_geojson
 from ..geometry.measure import outline_metrics
 from ..geometry.shapes import domain_polygon
-from ..spec import CAUTION, IterationRecord, Result
+from ..spec import CAUTION, IterationRecord, ProblemError, Result
 from .svg import outline_svg
 
 FILES = ("outline.svg", "outline.dxf", "outline.geojson", "design.png",
@@ -33,17 +33,39 @@ def history_csv(result: Result) -> str:
     return buf.getvalue()
 
 
+def software_record() -> dict:
+    """Which program wrote a record: the ``software`` entry of every JSON file written.
+
+    Returns
+    -------
+    dict
+        ``{"name": "levelform", "version": levelform.__version__}``.
+    """
+    from .. import __version__
+
+    return {"name": "levelform", "version": str(__version__)}
+
+
 def _software_version() -> str:
-    try:
-        from .. import __version__
-        return str(__version__)
-    except ImportError:
-        pass
-    try:
-        from importlib.metadata import version
-        return version("levelform")
-    except Exception:  # not installed either
-        return "unknown"
+    """The version of :func:`software_record` (still read by io/verification.py)."""
+    return software_record()["version"]
+
+
+def units_record(units) -> dict:
+    """The units of a problem as written into summary.json, verify.json and comparison.json.
+
+    Parameters
+    ----------
+    units : levelform.spec.Units
+
+    Returns
+    -------
+    dict
+        ``length``, ``force``, ``stress`` (force/length^2) and ``compliance``
+        (force*length), each a unit name.
+    """
+    return {"length": units.length, "force": units.force, "stress": units.stress,
+            "compliance": units.compliance}
 
 
 def summary(result: Result) -> dict:
@@ -52,7 +74,6 @@ def summary(result: Result) -> dict:
     domain = domain_polygon(problem)
     metrics = outline_metrics(result.outline, domain)
     g = result.grid
-    units = problem.units
     data = {
         "compliance": result.compliance,
         "material_fraction": result.material_fraction,
@@ -69,14 +90,13 @@ def summary(result: Result) -> dict:
         "crisp_compliance": result.compliance if result.crisp_compliance is None else result.crisp_compliance,
         "fabrication": dict(result.fabrication or {}),
         "domain_area": domain.area,
-        "units": {"length": units.length, "force": units.force,
-                  "stress": units.stress, "compliance": units.compliance},
+        "units": units_record(problem.units),
         "settings": dict(result.settings or {}),
         "grid": {"nx": g.nx, "ny": g.ny, "h": g.h, "x0": g.x0, "y0": g.y0},
         "case_compliance": dict(result.case_compliance or {}),
         "method": result.method,
         "problem": {"name": problem.name, "source": problem.source},
-        "software": {"name": "levelform", "version": _software_version()},
+        "software": software_record(),
         "caution": CAUTION,
     }
     return _jsonable(data)
@@ -84,14 +104,40 @@ def summary(result: Result) -> dict:
 
 # --------------------------------------------------------------------------- all
 
-def export(result: Result, outdir) -> dict[str, Path]:
+def export(result: Result, outdir, *, overwrite: bool = False) -> dict[str, Path]:
     """Write every output file of ``result`` into ``outdir`` (created if missing).
+
+    Parameters
+    ----------
+    result : Result
+        What an optimization returned.
+    outdir : str or path-like
+        The folder to write into. A folder that already holds anything is refused unless
+        ``overwrite`` is true, so an earlier run's results are never replaced by accident.
+    overwrite : bool, default False
+        Write into a non-empty folder, replacing levelform's files there (those in
+        :data:`FILES`); other files in it are left alone.
+
+    Returns
+    -------
+    dict of str to Path
+        {file name: path} of every file written.
+
+    Raises
+    ------
+    ProblemError
+        ``outdir`` is not empty and ``overwrite`` is false, or it exists and is not a
+        folder; nothing is written then.
 
     All files are rendered in memory first, then each is written atomically, so a
     rendering error writes nothing and a disk error never leaves a partial file.
-    Returns {file name: path}.
     """
     outdir = Path(outdir)
+    if outdir.exists() and not outdir.is_dir():
+        raise ProblemError(f"outdir: {outdir} exists and is not a folder")
+    if not overwrite and outdir.is_dir() and any(outdir.iterdir()):
+        raise ProblemError(f"outdir: the folder {outdir} is not empty; pass overwrite=True to replace "
+                           "its results, or choose another folder")
     rendered = {
         "outline.svg": outline_svg(result).encode("utf-8"),
         "outline.dxf": outline_dxf(result),

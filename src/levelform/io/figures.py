@@ -18,6 +18,8 @@ COLOR_KEEP_SOLID = "#52796f"
 COLOR_KEEP_EMPTY = "#b08968"
 COLOR_SUPPORT = "#386641"
 COLOR_LOAD = "#bc4749"
+# One arrow colour per load case when a problem has several (each load is then labelled too).
+COLOR_CASES = (COLOR_LOAD, "#1d6fa5", "#c77d0a", "#6a4c93", "#2a9d8f", "#7f5539")
 
 
 def _support_glyphs(support, s: float, domain: Polygon):
@@ -130,7 +132,21 @@ def _mpl_path(polys):
 
 def design_png(result: Result) -> bytes:
     """Picture of the design: material over the domain, hatched keep regions, support
-    markers, load arrows (direction only), caution line at the bottom."""
+    markers, load arrows (direction only), caution line at the bottom; PNG bytes of
+    :func:`design_figure`."""
+    return _png_bytes(design_figure(result))
+
+
+def _case_colors(problem) -> dict:
+    """Arrow colour of each load case: all alike for one case, one each for several."""
+    names = [c.name for c in problem.cases] or sorted({ld.case for ld in problem.loads})
+    return {n: COLOR_CASES[k % len(COLOR_CASES)] for k, n in enumerate(names)}
+
+
+def design_figure(result: Result):
+    """The matplotlib Figure of :func:`design_png`. When the problem has several load
+    cases, each case's arrows get their own colour, each load is labelled with its case
+    name at the tail of its arrow, and the legend lists the cases."""
     from matplotlib.collections import LineCollection
     from matplotlib.lines import Line2D
     from matplotlib.patches import Patch, PathPatch
@@ -180,21 +196,32 @@ def design_png(result: Result) -> bytes:
         ax.add_collection(LineCollection(sup_lines, colors=COLOR_SUPPORT, lw=1.0, zorder=4))
 
     arrow_len = 3.5 * s
-    tails, heads = [], []
+    colors = _case_colors(problem)
+    several = len(colors) > 1
+    arrows: dict = {}  # case name -> (tails, heads)
     for load in problem.loads:
+        color = colors.get(load.case, COLOR_LOAD) if several else COLOR_LOAD
         t, hd = _load_arrows(load, arrow_len)
+        tails, heads = arrows.setdefault(load.case if several else None, ([], []))
         tails.append(t)
         heads.append(hd)
         if load.kind == "segment":
             seg = np.asarray(load.where, dtype=float)
-            ax.plot(seg[:, 0], seg[:, 1], color=COLOR_LOAD, lw=1.2, zorder=5)
-    if tails:
+            ax.plot(seg[:, 0], seg[:, 1], color=color, lw=1.2, zorder=5)
+        if several and len(t):
+            k = len(t) // 2  # the middle arrow of a row
+            ax.annotate(str(load.case), tuple(t[k]), xytext=(0, 0), textcoords="offset points",
+                        ha="center", va="center", fontsize=7, color=color, zorder=7,
+                        bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": color,
+                              "lw": 0.6, "alpha": 0.9})
+    for case, (tails, heads) in arrows.items():
         t = np.concatenate(tails)
         hd = np.concatenate(heads)
         if len(t):
             d = hd - t
             ax.quiver(t[:, 0], t[:, 1], d[:, 0], d[:, 1], angles="xy", scale_units="xy",
-                      scale=1.0, color=COLOR_LOAD, width=0.004, zorder=5)
+                      scale=1.0, color=colors.get(case, COLOR_LOAD) if several else COLOR_LOAD,
+                      width=0.004, zorder=5)
             allpts = np.concatenate([t, hd])
             minx, miny = min(minx, allpts[:, 0].min()), min(miny, allpts[:, 1].min())
             maxx, maxy = max(maxx, allpts[:, 0].max()), max(maxy, allpts[:, 1].max())
@@ -218,20 +245,59 @@ def design_png(result: Result) -> bytes:
     if problem.supports:
         handles.append(Line2D([], [], color=COLOR_SUPPORT, marker="^", ls="none",
                               label="support"))
-    if problem.loads:
+    if problem.loads and several:
+        used = {ld.case for ld in problem.loads}
+        handles.extend(Line2D([], [], color=color, marker=r"$\rightarrow$", ls="none",
+                              markersize=10, label=f"load, case {name}")
+                       for name, color in colors.items() if name in used)
+    elif problem.loads:
         handles.append(Line2D([], [], color=COLOR_LOAD, marker=r"$\rightarrow$", ls="none",
                               markersize=10, label="load (direction)"))
     ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.02, 1.0), fontsize=8,
               frameon=False)
     fig.text(0.5, 0.015, CAUTION, ha="center", va="bottom", fontsize=7, color="#5c677d")
-    return _png_bytes(fig)
+    return fig
+
+
+def _fit_axes(fig, axes, bottom: float = 0.0, margin: float = 0.01, rounds: int = 4) -> None:
+    """Shrink ``axes`` (which share one position, e.g. an axes and its twin) until their
+    tick labels, offset texts, axis labels and title lie inside the figure, above
+    ``bottom`` (a figure fraction), with ``margin`` to spare. Measured on the rendered
+    figure, so long tick labels (0.0001025, or 1e6 with an offset) never push the y label
+    off the figure. Axes that already fit are left where they are."""
+    from matplotlib.transforms import Bbox
+
+    renderer = fig.canvas.get_renderer()
+    to_fig = fig.transFigure.inverted()
+    for _ in range(rounds):
+        bb = Bbox.union([ax.get_tightbbox(renderer) for ax in axes]).transformed(to_fig)
+        left = max(0.0, margin - bb.x0)
+        right = max(0.0, bb.x1 - (1.0 - margin))
+        low = max(0.0, bottom + margin - bb.y0)
+        top = max(0.0, bb.y1 - (1.0 - margin))
+        if max(left, right, low, top) <= 1e-4:
+            return
+        pos = axes[0].get_position()
+        new = Bbox.from_extents(pos.x0 + left, pos.y0 + low, pos.x1 - right, pos.y1 - top)
+        if new.width <= 0.2 * pos.width or new.height <= 0.2 * pos.height:
+            return  # labels larger than the figure: leave the axes usable
+        for ax in axes:
+            ax.set_position(new)
 
 
 def history_png(result: Result) -> bytes:
     """Compliance (log scale if it spans more than 10x) and material fraction with its
-    target against iteration."""
+    target against iteration, as PNG bytes (see :func:`history_figure`)."""
+    return _png_bytes(history_figure(result))
+
+
+def history_figure(result: Result):
+    """The matplotlib Figure of :func:`history_png`: compliance on the left axis, material
+    fraction and its target on the right one, the caution line at the bottom. The axes are
+    shrunk as far as their rendered labels need, so nothing is clipped."""
     fig = _figure(7.0, 4.2)
     ax = fig.add_axes((0.11, 0.16, 0.75, 0.74))
+    axes = [ax]
     hist = result.history
     units = result.problem.units
     if not hist:
@@ -247,6 +313,7 @@ def history_png(result: Result) -> bytes:
         if good.size and good.max() > 10.0 * good.min():
             ax.set_yscale("log")
         ax2 = ax.twinx()
+        axes.append(ax2)
         ax2.plot(it, frac, color=COLOR_KEEP_SOLID, lw=1.2, label="material fraction")
         ax2.plot(it, target, color=COLOR_DOMAIN, lw=1.0, ls="--", label="target fraction")
         ax2.set_ylabel("material fraction")
@@ -259,5 +326,8 @@ def history_png(result: Result) -> bytes:
     ax.set_xlabel("iteration")
     ax.set_ylabel(f"compliance [{units.compliance}]")
     ax.set_title(f"{result.problem.name}: convergence history", fontsize=10)
-    fig.text(0.5, 0.015, CAUTION, ha="center", va="bottom", fontsize=7, color="#5c677d")
-    return _png_bytes(fig)
+    caution = fig.text(0.5, 0.015, CAUTION, ha="center", va="bottom", fontsize=7, color="#5c677d")
+    top_of_caution = caution.get_window_extent(fig.canvas.get_renderer()).transformed(
+        fig.transFigure.inverted()).y1
+    _fit_axes(fig, axes, bottom=top_of_caution)
+    return fig

@@ -10,6 +10,8 @@ from ..bodyfitted.check import Verification
 from ..spec import CAUTION, Problem
 
 FILES = ("verify.json", "stress.png", "verify.vtu")
+# Pad outlines on the stress map: light, to stand out on the dark low-stress colours.
+COLOR_PAD = "#f4a261"
 
 
 # --------------------------------------------------------------------------- writing
@@ -43,10 +45,25 @@ def _sub_triangles(v: Verification) -> np.ndarray:
 
 def stress_png(v: Verification, problem: Problem) -> bytes:
     """Von Mises stress (envelope over load cases) over the mesh, the peak marked, the
-    caution line at the bottom."""
+    caution line at the bottom; PNG bytes of :func:`stress_figure`."""
+    from .figures import _png_bytes
+
+    return _png_bytes(stress_figure(v, problem))
+
+
+def stress_figure(v: Verification, problem: Problem):
+    """The matplotlib Figure of :func:`stress_png`.
+
+    With several load cases the map shows, at every node, the largest von Mises stress of
+    any case, and the title says so ("von Mises, envelope over load cases a, b"). Padded
+    point supports are outlined and named "support pad" in the legend: their held disk
+    carries little stress and would otherwise read as a bolt hole.
+    """
     from matplotlib.tri import Triangulation
 
-    from .figures import COLOR_DOMAIN, _figure, _png_bytes
+    from ..bodyfitted.check import _pad_polygon, _uses_pad
+    from ..fem.model import resolve_settings
+    from .figures import COLOR_DOMAIN, _figure
 
     units = problem.units
     xy = v.points
@@ -57,15 +74,31 @@ def stress_png(v: Verification, problem: Problem) -> bytes:
     fig_h = min(max(fig_w * 0.8 * h / w + 1.5, 3.2), 10.0)
     fig = _figure(fig_w, fig_h)
     ax = fig.add_axes((0.08, 0.15, 0.74, 0.75))
-    cax = fig.add_axes((0.85, 0.15, 0.025, 0.75))
+    settings = resolve_settings(problem)
+    pads = [s for s in problem.supports if s.kind == "point" and _uses_pad(s, settings)]
+    # With pads to name, the colour bar makes room below it for the legend.
+    cax = fig.add_axes((0.85, 0.36, 0.025, 0.54) if pads else (0.85, 0.15, 0.025, 0.75))
     tri = Triangulation(xy[:, 0], xy[:, 1], _sub_triangles(v))
     art = ax.tripcolor(tri, v.von_mises, shading="gouraud", cmap="cividis", rasterized=True)
     cb = fig.colorbar(art, cax=cax)
-    cb.set_label(f"von Mises stress [{units.stress}]")
+    names = tuple(v.case_names)
+    envelope = len(names) > 1
+    cb.set_label(f"von Mises stress [{units.stress}]" + ("\nenvelope over load cases" if envelope else ""))
+    handles = []
+    for k, sup in enumerate(pads):
+        ring = np.asarray(_pad_polygon(sup.where, settings, v.mesh_size).exterior.coords)
+        (line,) = ax.plot(ring[:, 0], ring[:, 1], color=COLOR_PAD, lw=1.3, ls="--", zorder=4,
+                          label="support pad (held)" if k == 0 else "_nolegend_")
+        if k == 0:
+            handles.append(line)
     if v.max_von_mises_at is not None:
         px, py = v.max_von_mises_at
-        ax.plot([px], [py], marker="o", ms=7, mfc="none", mec="#d62828", mew=1.8, zorder=5)
-        ax.annotate(f"peak {v.max_von_mises:.4g}", (px, py), xytext=(6, 6), textcoords="offset points",
+        (mark,) = ax.plot([px], [py], marker="o", ms=7, mfc="none", mec="#d62828", mew=1.8, ls="none",
+                          zorder=5, label="peak von Mises")
+        if handles:
+            handles.append(mark)
+        in_case = f" (case {v.max_von_mises_case})" if envelope and v.max_von_mises_case else ""
+        ax.annotate(f"peak {v.max_von_mises:.4g}{in_case}", (px, py), xytext=(6, 6), textcoords="offset points",
                     fontsize=8, color="#d62828", zorder=6,
                     bbox={"boxstyle": "round,pad=0.2", "fc": "white", "ec": "none", "alpha": 0.85})
     pad = 0.03 * max(w, h)
@@ -78,12 +111,17 @@ def stress_png(v: Verification, problem: Problem) -> bytes:
     ax.set_xlabel(f"x [{units.length}]")
     ax.set_ylabel(f"y [{units.length}]")
     comp = "n/a" if v.compliance is None else f"{v.compliance:.5g} {units.compliance}"
-    ax.set_title(f"{problem.name}: body-fitted check, compliance {comp}, "
-                 f"{v.elements} triangles", fontsize=9)
+    title = f"{problem.name}: body-fitted check, compliance {comp}, {v.elements} triangles"
+    if envelope:
+        title += "\nvon Mises, envelope over load cases " + ", ".join(map(str, names))
+    ax.set_title(title, fontsize=9)
+    if handles:
+        fig.legend(handles=handles, loc="lower left", bbox_to_anchor=(0.82, 0.15), fontsize=7, frameon=False,
+                   handlelength=1.4, borderaxespad=0.0)
     if not v.ok:
         fig.text(0.5, 0.06, "NOT OK: " + v.problems[0][:140], ha="center", fontsize=7, color="#d62828")
     fig.text(0.5, 0.015, CAUTION, ha="center", va="bottom", fontsize=7, color="#5c677d")
-    return _png_bytes(fig)
+    return fig
 
 
 def _field_name(name: str) -> str:
