@@ -11,6 +11,7 @@ from pathlib import Path
 import ezdxf
 import numpy as np
 import pytest
+from conftest import plate_problem
 from shapely.geometry import MultiPolygon, Point, Polygon, box, shape
 from shapely.geometry.polygon import orient
 
@@ -41,20 +42,18 @@ def make_result(length="mm", compliance=12.5, name="bracket <demo> & co"):
     """A hand-made Result: a plate with a bolt hole and two design holes."""
     outline = ((0.0, 0.0), (40.0, 0.0), (40.0, 20.0), (0.0, 20.0))
     bolt = ((4.0, 8.0), (8.0, 8.0), (8.0, 12.0), (4.0, 12.0))
-    problem = Problem(
-        units=Units(length, "N"),
-        material=Material(E=70e3, nu=0.33, thickness=2.0),
-        domain=Domain(outline=outline, holes=(bolt,), cell=0.5),
+    problem = plate_problem(
+        outline, 0.5,
         supports=(Support("point", (0.0, 0.0), "xy", key="support[0]"),
                   Support("point", (40.0, 0.0), "y", key="support[1]"),
                   Support("segment", ((0.0, 14.0), (0.0, 20.0)), "x", key="support[2]"),
                   Support("box", (2.0, 6.0, 10.0, 14.0), "xy", key="support[3]")),
         loads=(Load("point", (30.0, 20.0), (0.0, -100.0), key="load[0]"),
                Load("segment", ((36.0, 20.0), (40.0, 20.0)), (5.0, -5.0), key="load[1]")),
-        cases=(LoadCase("main"),),
+        holes=(bolt,),
         regions=(Region("solid", "circle", (6.0, 10.0, 4.0), key="region[0]"),
                  Region("empty", "box", (18.0, 0.0, 22.0, 3.0), key="region[1]")),
-        goal=Goal(0.5), method=Method(), name=name, source="demo.toml")
+        E=70e3, nu=0.33, t=2.0, length=length, name=name, source="demo.toml")
     dom = Polygon(outline, [bolt])
     design = dom.difference(Point(16, 10).buffer(3.0, quad_segs=16)).difference(box(26, 6, 32, 14))
     material = MultiPolygon([orient(design, 1.0)])
@@ -293,3 +292,112 @@ def test_dxf_identical_across_processes_with_different_hash_seeds(tmp_path):
         env = {**os.environ, "PYTHONHASHSEED": seed}
         outs.append(subprocess.run([sys.executable, "-c", code], capture_output=True, env=env, check=True).stdout)
     assert outs[0] == outs[1] == outs[2]
+
+
+# --------------------------------------------------------------------------- refusing a full folder
+
+def test_export_refuses_a_non_empty_folder_unless_overwrite(tmp_path):
+    # The contract of export(): a folder holding anything is not written into without
+    # overwrite=True, and the refusal writes nothing (checked by listing the folder).
+    import levelform
+    from levelform.spec import ProblemError
+
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / "notes.txt").write_text("mine")
+    for call in (ex.export, levelform.export):
+        with pytest.raises(ProblemError, match="overwrite=True") as info:
+            call(make_result(), out)
+        assert str(out) in str(info.value)
+        assert sorted(p.name for p in out.iterdir()) == ["notes.txt"]
+    paths = levelform.export(make_result(), out, overwrite=True)
+    assert set(paths) == set(ex.FILES)
+    assert (out / "notes.txt").read_text() == "mine"  # other files are left alone
+    again = ex.export(make_result(compliance=7.0), out, overwrite=True)
+    assert json.loads(again["summary.json"].read_text())["compliance"] == 7.0
+    # An empty folder, or one not there yet, needs no flag.
+    (tmp_path / "empty").mkdir()
+    assert set(ex.export(make_result(), tmp_path / "empty")) == set(ex.FILES)
+    # A file where the folder should be is refused, whatever the flag.
+    (tmp_path / "file").write_text("x")
+    for flag in (False, True):
+        with pytest.raises(ProblemError, match="not a folder"):
+            ex.export(make_result(), tmp_path / "file", overwrite=flag)
+    assert (tmp_path / "file").read_text() == "x"
+
+
+# --------------------------------------------------------------------------- figures
+
+def _history(scale, n=20):
+    return tuple(IterationRecord(iteration=k, compliance=scale * (1.0 + 0.2 / (k + 1)),
+                                 material_fraction=1.0 - 0.02 * min(k, 10), target_fraction=0.8,
+                                 boundary_change=0.1 / (k + 1), step=0.5) for k in range(n))
+
+
+@pytest.mark.parametrize("scale", [1e-4, 1e6, 1e-3])
+def test_history_figure_keeps_its_labels_inside_the_figure(scale):
+    # Bounding boxes as matplotlib renders them (the reference library): the compliance
+    # label, the material-fraction label, every tick label and the offset text must lie
+    # inside the figure. Compliance near 1e-4 gets tick labels like 0.0001025, which pushed
+    # the y label off the left edge before the layout was measured.
+    from levelform.io.figures import history_figure
+
+    res = dataclasses.replace(make_result(), history=_history(scale))
+    fig = history_figure(res)
+    fig.canvas.draw()
+    renderer = fig.canvas.get_renderer()
+    inside = fig.bbox
+    ax, ax2 = fig.axes[:2]
+    texts = [ax.yaxis.label, ax2.yaxis.label, ax.xaxis.label, ax.title, ax.yaxis.get_offset_text()]
+    for axis in (ax.yaxis, ax2.yaxis, ax.xaxis):  # the tick labels drawn: those within the view
+        lo, hi = sorted(axis.get_view_interval())
+        texts += [lab for loc, lab in zip(axis.get_ticklocs(), axis.get_ticklabels()) if lo <= loc <= hi]
+    assert ax.yaxis.label.get_text().startswith("compliance")
+    for t in texts:
+        if not t.get_visible() or not t.get_text():
+            continue
+        bb = t.get_window_extent(renderer)
+        assert inside.x0 <= bb.x0 and bb.x1 <= inside.x1 and inside.y0 <= bb.y0 and bb.y1 <= inside.y1, (
+            t.get_text(), bb, inside)
+    # The PNG is the same figure.
+    assert ex.history_png(res)[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def _texts(fig):
+    out = []
+    for ax in fig.axes:
+        out += [t.get_text() for t in ax.texts]
+        if ax.get_legend() is not None:
+            out += [t.get_text() for t in ax.get_legend().get_texts()]
+    return out
+
+
+def test_design_figure_names_the_load_case_of_each_arrow():
+    # Reference: the problem's own load cases. Two cases: every load is labelled with its
+    # case name at the tail of its arrow, each case has its colour and a legend entry.
+    from matplotlib.colors import to_hex
+    from matplotlib.quiver import Quiver
+
+    from levelform.io.figures import load_arrows, design_figure
+
+    res = make_result()
+    p = res.problem
+    p2 = dataclasses.replace(p, cases=(LoadCase("gust"), LoadCase("snow", 0.5)),
+                             loads=(dataclasses.replace(p.loads[0], case="gust"),
+                                    dataclasses.replace(p.loads[1], case="snow")))
+    fig = design_figure(dataclasses.replace(res, problem=p2))
+    ax = fig.axes[0]
+    labels = {t.get_text(): t for t in ax.texts if t.get_text() in ("gust", "snow")}
+    assert set(labels) == {"gust", "snow"}
+    s = 0.03 * math.hypot(40.0, 20.0)  # the glyph size of design_png: 3 % of the domain's diagonal
+    for load in p2.loads:
+        tails, _ = load_arrows(load, 3.5 * s)
+        assert labels[load.case].xy == pytest.approx(tuple(tails[len(tails) // 2]))
+    legend = [t.get_text() for t in ax.get_legend().get_texts()]
+    assert "load, case gust" in legend and "load, case snow" in legend
+    colors = {to_hex(q.get_facecolor()[0]) for q in ax.collections if isinstance(q, Quiver)}
+    assert len(colors) == 2
+    # One case: the arrows stay unlabelled and the legend says "load (direction)".
+    one = design_figure(res)
+    assert "load (direction)" in _texts(one)
+    assert not any(t in ("main", "gust", "snow") for t in _texts(one))

@@ -7,9 +7,9 @@ import sys
 from importlib import resources
 from pathlib import Path
 
-from . import __version__
 from .methods.registry import method_names
 from .spec import CAUTION, ProblemError
+from .version import __version__
 
 EXIT_OK, EXIT_FAIL, EXIT_BAD_INPUT, EXIT_INTERRUPTED = 0, 1, 2, 130
 

@@ -8,22 +8,26 @@ figure, which for density-based methods describes a grey design nobody can cut.
 """
 from __future__ import annotations
 
-import csv
 import dataclasses
-import io
 from dataclasses import dataclass
 from functools import partial
-from pathlib import Path
 
 import numpy as np
 import shapely
 
-from .methods.registry import method_names
 from .fem.analysis import PlateSystem
 from .fem.model import build_model
 from .geometry.measure import outline_metrics
 from .geometry.shapes import domain_polygon
-from .spec import CAUTION, GridInfo, Problem, ProblemError
+from .io.comparison_files import (  # noqa: F401  (the writers, importable from here too)
+    FIELDS,
+    comparison_csv,
+    comparison_record,
+    problem_record,
+    write_comparison,
+)
+from .methods.registry import method_names
+from .spec import GridInfo, Problem, ProblemError
 
 # Stiffness ratio of void to solid in the common analysis. Small enough that void carries
 # no load worth speaking of (void cells add at most about ERSATZ relative stiffness), large
@@ -32,28 +36,8 @@ ERSATZ = 1e-6
 REFINE = 2
 DEFAULT_METHODS = method_names()  # every registered method
 
-# Per-method scalar fields, in table order; comparison.csv has these columns (plus one
-# crisp compliance column per load case when there are several).
-FIELDS = (
-    "method",
-    "crisp_compliance",
-    "ratio_to_levelset",
-    "bodyfitted_compliance",
-    "bodyfitted_ok",
-    "own_compliance",
-    "own_crisp_compliance",
-    "material_fraction",
-    "own_material_fraction",
-    "outline_area",
-    "outline_length",
-    "holes",
-    "pieces",
-    "smallest_member_width",
-    "iterations",
-    "seconds",
-    "converged",
-    "status",
-)
+# The per-method scalar fields, in table order (FIELDS), live with the writers in
+# io/comparison_files.py.
 
 
 @dataclass(frozen=True)
@@ -234,123 +218,3 @@ def compare_methods(problem: Problem, methods=DEFAULT_METHODS, progress=None,
             row["ratio_to_levelset"] = row["crisp_compliance"] / ref if ref > 0 else None
     return Comparison(problem=problem, methods=names, rows=rows, results=results,
                       evaluation=evaluation)
-
-
-# --------------------------------------------------------------------------- records
-
-def problem_record(problem: Problem) -> dict:
-    """The problem's identity and units, as written into comparison.json."""
-    from .io.export import units_record
-
-    domain = domain_polygon(problem)
-    return {
-        "name": problem.name,
-        "source": problem.source,
-        "goal_material": problem.goal.material,
-        "domain_area": domain.area,
-        "cell": problem.domain.cell,
-        "load_cases": {c.name: c.weight for c in problem.cases},
-        "units": units_record(problem.units),
-    }
-
-
-def comparison_record(comparison: Comparison) -> dict:
-    """The content of comparison.json (plain values)."""
-    from .io.export import software_record
-
-    return {
-        "methods": {m: dict(comparison.rows[m]) for m in comparison.methods},
-        "problem": problem_record(comparison.problem),
-        "evaluation": dict(comparison.evaluation),
-        "caution": CAUTION,
-        "software": software_record(),
-    }
-
-
-def _cell(v) -> str:
-    if v is None:
-        return ""
-    if isinstance(v, float):
-        return repr(v) if np.isfinite(v) else ""
-    return str(v)
-
-
-def comparison_csv(comparison: Comparison) -> str:
-    """One row per method, header first: the FIELDS, then, with several load cases, one
-    ``crisp_compliance[CASE]`` column per case."""
-    cases = [c.name for c in comparison.problem.cases]
-    extra = [f"crisp_compliance[{c}]" for c in cases] if len(cases) > 1 else []
-    buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
-    w.writerow(list(FIELDS) + extra)
-    for m in comparison.methods:
-        row = comparison.rows[m]
-        w.writerow([_cell(row[f]) for f in FIELDS]
-                   + [_cell(row["case_compliance"].get(c)) for c in cases if extra])
-    return buf.getvalue()
-
-
-def comparison_png(comparison: Comparison) -> bytes:
-    """Side by side, one panel per method: the crisp outline over the domain, titled with
-    the method and its crisp compliance; the caution line at the bottom."""
-    from matplotlib.patches import PathPatch
-
-    from .geometry.shapes import _polygons
-    from .io.figures import COLOR_DOMAIN, COLOR_DOMAIN_FILL, COLOR_MATERIAL, _figure, _mpl_path, _png_bytes
-
-    problem = comparison.problem
-    domain = domain_polygon(problem)
-    minx, miny, maxx, maxy = domain.bounds
-    w, h = max(maxx - minx, 1e-12), max(maxy - miny, 1e-12)
-    n = len(comparison.methods)
-    # Sizes in inches: a panel at most 4 wide and 4.5 tall (at least 2.6 wide, room for
-    # the title), then side margin, gap, title band and caution band.
-    panel_w = min(4.0, max(2.6, 4.5 * w / h))
-    panel_h = min(max(panel_w * h / w, 1.2), 6.0)
-    side, gap, top, foot = 0.2, 0.15, 0.75, 0.45
-    fig_w, fig_h = panel_w * n + gap * (n - 1) + 2 * side, panel_h + top + foot
-    fig = _figure(fig_w, fig_h)
-    unit = problem.units.compliance
-    pad = 0.03 * max(w, h)
-    for k, m in enumerate(comparison.methods):
-        ax = fig.add_axes(((side + k * (panel_w + gap)) / fig_w, foot / fig_h,
-                           panel_w / fig_w, panel_h / fig_h))
-        ax.add_patch(PathPatch(_mpl_path([domain]), facecolor=COLOR_DOMAIN_FILL,
-                               edgecolor=COLOR_DOMAIN, lw=0.8, zorder=1))
-        mp = _mpl_path(_polygons(comparison.results[m].outline))
-        if mp is not None:
-            ax.add_patch(PathPatch(mp, facecolor=COLOR_MATERIAL, edgecolor="none", zorder=2))
-        ax.set_xlim(minx - pad, maxx + pad)
-        ax.set_ylim(miny - pad, maxy + pad)
-        ax.set_aspect("equal", adjustable="box")
-        ax.set_xticks([])
-        ax.set_yticks([])
-        for spine in ax.spines.values():
-            spine.set_visible(False)
-        row = comparison.rows[m]
-        ax.set_title(f"{m}\ncrisp compliance {row['crisp_compliance']:.5g} {unit}\n"
-                     f"material {row['material_fraction']:.3f}", fontsize=9)
-    fig.text(0.5, 0.05 / fig_h, "Crisp outlines analysed alike on one grid. " + CAUTION,
-             ha="center", va="bottom", fontsize=6.5, color="#5c677d", wrap=True)
-    return _png_bytes(fig, dpi=120)
-
-
-def write_comparison(comparison: Comparison, outdir) -> dict[str, Path]:
-    """Write comparison.json, comparison.csv, comparison.png and report.html into
-    ``outdir`` (created if missing). Everything is rendered in memory first and each file
-    written atomically, so a failure leaves no half-written file. Returns {name: path}."""
-    from .io.atomic import atomic_write_bytes, json_text
-    from .io.report import report_html
-
-    overview = comparison_png(comparison)
-    rendered = {
-        "comparison.json": json_text(comparison_record(comparison)).encode("utf-8"),
-        "comparison.csv": comparison_csv(comparison).encode("utf-8"),
-        "comparison.png": overview,
-        "report.html": report_html(comparison, overview_png=overview).encode("utf-8"),
-    }
-    outdir = Path(outdir)
-    if outdir.exists() and not outdir.is_dir():
-        raise ProblemError([f"outdir: {outdir} exists and is not a folder"])
-    outdir.mkdir(parents=True, exist_ok=True)
-    return {name: atomic_write_bytes(outdir / name, data) for name, data in rendered.items()}

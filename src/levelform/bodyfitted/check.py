@@ -23,9 +23,9 @@ import shapely.ops
 from shapely.geometry import LineString, Point, Polygon
 from shapely.geometry.polygon import orient
 
+from ..fem.model import resolve_settings, uses_pad
+from ..geometry.shapes import domain_polygon, item_geometry, polygon_parts
 from ..linalg import sparse_lu
-from ..fem.model import resolve_settings
-from ..geometry.shapes import _polygons, domain_polygon, item_geometry
 from ..spec import Problem, ProblemError
 
 # Share by which the body-fitted compliance may differ from the grid's before a warning.
@@ -93,7 +93,7 @@ class Verification:
 def _outline_polygons(outline) -> list[Polygon]:
     if outline is None or not hasattr(outline, "geom_type"):
         raise ProblemError("outline: expected a shapely Polygon or MultiPolygon")
-    polys = [orient(p, 1.0) for p in _polygons(outline) if p.area > 0.0]
+    polys = [orient(p, 1.0) for p in polygon_parts(outline) if p.area > 0.0]
     if not polys:
         raise ProblemError("outline: the outline is empty (no area to analyse)")
     for k, p in enumerate(polys):
@@ -176,16 +176,12 @@ def _pad_h(settings, mesh_size) -> float:
     return min(mesh_size, 0.5 * settings.pad_radius)
 
 
-def _pad_polygon(centre, settings, mesh_size) -> Polygon:
+def pad_polygon(centre, settings, mesh_size) -> Polygon:
     """The pad disk as the polygon embedded in the mesh: chords of about the pad's element
     size, at least 24 of them (area within 1.2 % of the disk)."""
     r = settings.pad_radius
     q = max(6, math.ceil(2.0 * math.pi * r / _pad_h(settings, mesh_size) / 4.0))
     return Point(centre).buffer(r, quad_segs=q)
-
-
-def _uses_pad(item, settings) -> bool:
-    return settings.pads if item.pad is None else bool(item.pad)
 
 
 def _plan(problem, material, settings, mesh_size, tol):
@@ -220,8 +216,8 @@ def _plan(problem, material, settings, mesh_size, tol):
             p = item.where
             if material.distance(g) <= tol and boundary.distance(g) <= tol:
                 hard.append(project(p))
-            if _uses_pad(item, settings):
-                add_line(_pad_polygon(p, settings, mesh_size).exterior)
+            if uses_pad(item, settings):
+                add_line(pad_polygon(p, settings, mesh_size).exterior)
                 refine.append((p[0], p[1], _pad_h(settings, mesh_size)))
             elif material.distance(g) <= tol and boundary.distance(g) > tol:
                 refine.append((p[0], p[1], 0.25 * mesh_size))  # a vertex close to an interior point
@@ -519,8 +515,8 @@ def _held_dofs(fit: _Fit, supports, problems) -> np.ndarray:
         nodes = np.zeros(0, np.int64)
         if s.kind == "point":
             inside = fit.material.distance(Point(s.where)) <= fit.tol
-            if _uses_pad(s, fit.settings):
-                pad = _pad_polygon(s.where, fit.settings, fit.mesh_size).buffer(fit.tol, quad_segs=2)
+            if uses_pad(s, fit.settings):
+                pad = pad_polygon(s.where, fit.settings, fit.mesh_size).buffer(fit.tol, quad_segs=2)
                 nodes = np.flatnonzero(shapely.contains_xy(pad, xy[:, 0], xy[:, 1]))
             if nodes.size == 0 and inside:
                 nodes = np.array([_nearest_vertex(fit, s.where)])
@@ -567,9 +563,9 @@ def _nodal_forces(fit: _Fit, elem, problem, case_names, problems, warnings):
         fvec = np.zeros(n_dof)
         if ld.kind == "point":
             inside = fit.material.distance(Point(ld.where)) <= fit.tol
-            padded = _uses_pad(ld, fit.settings)
+            padded = uses_pad(ld, fit.settings)
             spread = padded and _pad_forces(fit.mesh, elem, ld.force,
-                                            _pad_polygon(ld.where, fit.settings, fit.mesh_size), fvec)
+                                            pad_polygon(ld.where, fit.settings, fit.mesh_size), fvec)
             if not spread and inside:
                 k = _nearest_vertex(fit, ld.where)
                 fvec[2 * k] += ld.force[0]

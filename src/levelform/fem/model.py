@@ -224,7 +224,8 @@ def _pad_load_weights(centre, radius, domain, grid, active, cell_nodes, node_num
     return idx, w / w.sum()
 
 
-def _uses_pad(item, settings: Settings) -> bool:
+def uses_pad(item, settings: Settings) -> bool:
+    """Whether a support or load gets a solid pad: its own ``pad`` flag, else ``[method] pads``."""
     return settings.pads if item.pad is None else bool(item.pad)
 
 
@@ -268,7 +269,7 @@ def build_model(problem: Problem) -> Model:
     support_nodes, load_nodes = [], []
     for s in problem.supports:
         g = item_geometry(s)
-        padded = _uses_pad(s, settings)
+        padded = uses_pad(s, settings)
         if s.kind == "point" and padded:
             idx = _nodes_near(g, xy, settings.pad_radius)
         elif s.kind == "box":
@@ -287,7 +288,7 @@ def build_model(problem: Problem) -> Model:
     F = np.zeros((n_dof, len(case_names)))
     for ld in problem.loads:
         c = case_names.index(ld.case)
-        padded = _uses_pad(ld, settings)
+        padded = uses_pad(ld, settings)
         if ld.kind == "point":
             g = Point(ld.where)
             spread = (

@@ -7,7 +7,7 @@ import numpy as np
 import shapely
 from shapely.geometry import MultiPolygon, Polygon
 
-from .shapes import _polygons
+from .shapes import polygon_parts
 
 # Share of the area an opening may remove and still count as "keeping" the shape.
 OPENING_LOSS = 0.005
@@ -37,7 +37,7 @@ def design_holes(geom, domain: Polygon | None = None) -> list[Polygon]:
     """
     domain_holes = [Polygon(r) for r in domain.interiors] if domain is not None else []
     out = []
-    for p in _polygons(geom):
+    for p in polygon_parts(geom):
         for ring in p.interiors:
             hp = Polygon(ring)
             if not any(_coincides(hp, dh) for dh in domain_holes):
@@ -73,7 +73,7 @@ def outline_metrics(geom, domain: Polygon, tol=None) -> dict:
     ``pieces`` (separate polygons); ``smallest_member_width`` (see
     :func:`smallest_member_width`).
     """
-    polys = _polygons(geom)
+    polys = polygon_parts(geom)
     return {
         "area": float(sum(p.area for p in polys)),
         "outline_length": float(sum(p.length for p in polys)),
@@ -93,7 +93,7 @@ def _thin_removal(g, r: float) -> bool:
     removed = g.difference(opened) if not opened.is_empty else g
     if removed.area >= OPENING_LOSS * g.area:  # a short neck: removed in part only
         return True
-    for piece in _polygons(removed):
+    for piece in polygon_parts(removed):
         if piece.area < math.pi * (0.5 * r) ** 2:
             continue
         circle = shapely.maximum_inscribed_circle(piece, tolerance=0.02 * r)
@@ -113,7 +113,7 @@ def smallest_member_width(geom, tol=None) -> float:
     (default: 1/500 of the upper bound). Acute tips sharper than about 40 degrees count as
     thin features. Returns 0.0 for an empty geometry.
     """
-    polys = _polygons(geom)
+    polys = polygon_parts(geom)
     if not polys:
         return 0.0
     g = MultiPolygon(polys) if len(polys) > 1 else polys[0]
@@ -180,7 +180,7 @@ def corner_metrics(geom, domain=None) -> dict:
     edge = domain.boundary if domain is not None else None
     size = math.sqrt(domain.area) if domain is not None else 1.0
     max_turn, min_radius = 0.0, math.inf
-    for p in _polygons(geom):
+    for p in polygon_parts(geom):
         for ring in [p.exterior, *p.interiors]:
             xy = np.asarray(ring.coords)[:-1]
             if xy.shape[0] < 3:

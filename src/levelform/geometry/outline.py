@@ -5,8 +5,8 @@ import numpy as np
 import shapely
 from shapely.geometry import MultiPolygon, Polygon
 
-from .shapes import _oriented, _polygons
 from ..spec import GridInfo
+from .shapes import oriented_multipolygon, polygon_parts
 
 # Outline simplification tolerance, in cells.
 SIMPLIFY = 0.05
@@ -49,7 +49,7 @@ def outline_from_levelset(phi, grid: GridInfo, domain: Polygon, min_hole_area=No
         if not rings:
             continue
         poly = shapely.make_valid(Polygon(rings[0], rings[1:]))
-        for p in _polygons(poly):
+        for p in polygon_parts(poly):
             p = _drop_small_holes(p, min_area)
             if p.area >= min_area:
                 raw.append(p)
@@ -62,7 +62,7 @@ def outline_from_levelset(phi, grid: GridInfo, domain: Polygon, min_hole_area=No
     # (and its holes) stay exact.
     material = shapely.make_valid(shapely.simplify(material, SIMPLIFY * h, preserve_topology=True))
     clipped = shapely.make_valid(shapely.intersection(material, domain))
-    pieces = [p for p in _polygons(clipped) if p.area >= min_area]
+    pieces = [p for p in polygon_parts(clipped) if p.area >= min_area]
     # Sort so the output does not depend on contour traversal order.
     pieces.sort(key=lambda p: (p.bounds[0], p.bounds[1], -p.area))
-    return _oriented(pieces)
+    return oriented_multipolygon(pieces)

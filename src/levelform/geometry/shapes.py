@@ -14,7 +14,7 @@ __all__ = ["CIRCLE_QUAD_SEGS", "domain_polygon", "item_geometry", "keep_regions"
 CIRCLE_QUAD_SEGS = 32
 
 
-def _polygons(geom) -> list[Polygon]:
+def polygon_parts(geom) -> list[Polygon]:
     """Every non-empty Polygon inside ``geom`` (Polygon, MultiPolygon or collection)."""
     if geom is None or geom.is_empty:
         return []
@@ -23,12 +23,12 @@ def _polygons(geom) -> list[Polygon]:
     if hasattr(geom, "geoms"):
         out: list[Polygon] = []
         for g in geom.geoms:
-            out.extend(_polygons(g))
+            out.extend(polygon_parts(g))
         return out
     return []  # points and lines carry no area
 
 
-def _oriented(polygons) -> MultiPolygon:
+def oriented_multipolygon(polygons) -> MultiPolygon:
     """MultiPolygon with outer rings counter-clockwise, holes clockwise (RFC 7946)."""
     return MultiPolygon([orient(p, sign=1.0) for p in polygons])
 

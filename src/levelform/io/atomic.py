@@ -46,7 +46,7 @@ def atomic_write_text(path, text: str, encoding: str = "utf-8") -> Path:
     return atomic_write_bytes(path, text.encode(encoding))
 
 
-def _jsonable(obj):
+def jsonable(obj):
     """Plain JSON values: NaN/inf -> None, numpy -> Python, tuples -> lists."""
     if isinstance(obj, bool) or obj is None or isinstance(obj, str):
         return obj
@@ -58,14 +58,14 @@ def _jsonable(obj):
     if isinstance(obj, np.bool_):
         return bool(obj)
     if isinstance(obj, np.ndarray):
-        return _jsonable(obj.tolist())
+        return jsonable(obj.tolist())
     if isinstance(obj, dict):
-        return {str(k): _jsonable(v) for k, v in obj.items()}
+        return {str(k): jsonable(v) for k, v in obj.items()}
     if isinstance(obj, (list, tuple, set, frozenset)):
         items = sorted(obj, key=str) if isinstance(obj, (set, frozenset)) else obj
-        return [_jsonable(v) for v in items]
+        return [jsonable(v) for v in items]
     if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
-        return _jsonable(dataclasses.asdict(obj))
+        return jsonable(dataclasses.asdict(obj))
     if isinstance(obj, os.PathLike):
         return os.fspath(obj)
     return str(obj)
@@ -73,7 +73,7 @@ def _jsonable(obj):
 
 def json_text(obj) -> str:
     """Deterministic JSON: sorted keys, indent 2, non-finite floats as null."""
-    return json.dumps(_jsonable(obj), sort_keys=True, indent=2, allow_nan=False,
+    return json.dumps(jsonable(obj), sort_keys=True, indent=2, allow_nan=False,
                       ensure_ascii=False) + "\n"
 
 

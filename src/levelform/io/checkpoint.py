@@ -10,8 +10,8 @@ from pathlib import Path
 
 import numpy as np
 
-from .. import __version__
 from ..spec import ProblemError
+from ..version import __version__
 
 FILE_NAME = "checkpoint.npz"
 

@@ -6,10 +6,16 @@ import io
 
 import numpy as np
 
-from .figures import _load_arrows, _support_glyphs
-from ..geometry.shapes import _polygons
-from .scene import _length_unit, _rings, _round, _scene, _unit
+from ..geometry.shapes import polygon_parts
 from ..spec import CAUTION, Result
+from .figures import load_arrows, support_glyphs
+from .scene import (
+    coordinate_rings,
+    drawing_inputs,
+    length_unit,
+    round_coordinate,
+    unit_vector,
+)
 
 # --------------------------------------------------------------------------- DXF
 
@@ -63,8 +69,8 @@ def outline_dxf(result: Result) -> bytes:
     import ezdxf
     from ezdxf import units as dxf_units
 
-    domain, material, solid, empty, size = _scene(result)
-    unit = _length_unit(result.problem)
+    domain, material, solid, empty, size = drawing_inputs(result)
+    unit = length_unit(result.problem)
     s = 0.03 * size
     with _fixed_dxf_metadata():
         doc = ezdxf.new("R2010", setup=False)
@@ -82,27 +88,27 @@ def outline_dxf(result: Result) -> bytes:
         msp = doc.modelspace()
 
         def ring(points, layer):
-            pts = [(_round(x), _round(y)) for x, y in np.asarray(points)[:, :2]]
+            pts = [(round_coordinate(x), round_coordinate(y)) for x, y in np.asarray(points)[:, :2]]
             if len(pts) > 1 and pts[0] == pts[-1]:
                 pts = pts[:-1]
             msp.add_lwpolyline(pts, format="xy", close=True, dxfattribs={"layer": layer})
 
         def line(points, layer):
-            pts = [(_round(x), _round(y)) for x, y in np.asarray(points)[:, :2]]
+            pts = [(round_coordinate(x), round_coordinate(y)) for x, y in np.asarray(points)[:, :2]]
             msp.add_lwpolyline(pts, format="xy", close=False, dxfattribs={"layer": layer})
 
         for poly in material:
             ring(poly.exterior.coords, "OUTLINE")
             for r in poly.interiors:
                 ring(r.coords, "HOLES")
-        for r in _rings(domain):
+        for r in coordinate_rings(domain):
             ring(r, "DOMAIN")
         for geom, layer in ((solid, "KEEP_SOLID"), (empty, "KEEP_EMPTY")):
-            for poly in _polygons(geom):
-                for r in _rings(poly):
+            for poly in polygon_parts(geom):
+                for r in coordinate_rings(poly):
                     ring(r, layer)
         for sup in result.problem.supports:
-            closed, opens, label = _support_glyphs(sup, s, domain)
+            closed, opens, label = support_glyphs(sup, s, domain)
             for c in closed:
                 ring(c, "SUPPORTS")
             for o in opens:
@@ -110,14 +116,14 @@ def outline_dxf(result: Result) -> bytes:
             if label is not None:
                 (lx, ly), text = label
                 msp.add_text(text, height=0.5 * s, dxfattribs={"layer": "SUPPORTS"}
-                             ).set_placement((_round(lx), _round(ly)))
+                             ).set_placement((round_coordinate(lx), round_coordinate(ly)))
         for load in result.problem.loads:
-            tails, heads = _load_arrows(load, 3.5 * s)
+            tails, heads = load_arrows(load, 3.5 * s)
             if load.kind == "segment":
                 line(np.asarray(load.where, dtype=float), "LOADS")
             for tail, head in zip(tails, heads):
                 line(np.array([tail, head]), "LOADS")
-                d = _unit(head - tail)
+                d = unit_vector(head - tail)
                 t = np.array([-d[1], d[0]])
                 ring(np.array([head, head - 0.6 * s * d + 0.25 * s * t,
                                head - 0.6 * s * d - 0.25 * s * t]), "LOADS")

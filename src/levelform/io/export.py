@@ -6,13 +6,13 @@ import dataclasses
 import io
 from pathlib import Path
 
-from .atomic import _jsonable, atomic_write_bytes, json_text
-from .dxf import outline_dxf
-from .figures import design_png, history_png
-from .geojson import outline_geojson
 from ..geometry.measure import outline_metrics
 from ..geometry.shapes import domain_polygon
 from ..spec import CAUTION, IterationRecord, ProblemError, Result
+from .atomic import atomic_write_bytes, json_text, jsonable
+from .dxf import outline_dxf
+from .figures import design_png, history_png
+from .geojson import outline_geojson
 from .svg import outline_svg
 
 FILES = ("outline.svg", "outline.dxf", "outline.geojson", "design.png",
@@ -41,14 +41,9 @@ def software_record() -> dict:
     dict
         ``{"name": "levelform", "version": levelform.__version__}``.
     """
-    from .. import __version__
+    from ..version import __version__
 
     return {"name": "levelform", "version": str(__version__)}
-
-
-def _software_version() -> str:
-    """The version of :func:`software_record` (still read by io/verification.py)."""
-    return software_record()["version"]
 
 
 def units_record(units) -> dict:
@@ -99,7 +94,7 @@ def summary(result: Result) -> dict:
         "software": software_record(),
         "caution": CAUTION,
     }
-    return _jsonable(data)
+    return jsonable(data)
 
 
 # --------------------------------------------------------------------------- all

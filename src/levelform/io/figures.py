@@ -6,9 +6,9 @@ import io
 import numpy as np
 from shapely.geometry import Point, Polygon
 
-from ..geometry.shapes import _polygons
-from .scene import _length_unit, _rings, _scene, _unit
+from ..geometry.shapes import domain_polygon, polygon_parts
 from ..spec import CAUTION, Result
+from .scene import coordinate_rings, drawing_inputs, length_unit, unit_vector
 
 # Our own restrained palette.
 COLOR_MATERIAL = "#2f3e46"
@@ -22,7 +22,7 @@ COLOR_LOAD = "#bc4749"
 COLOR_CASES = (COLOR_LOAD, "#1d6fa5", "#c77d0a", "#6a4c93", "#2a9d8f", "#7f5539")
 
 
-def _support_glyphs(support, s: float, domain: Polygon):
+def support_glyphs(support, s: float, domain: Polygon):
     """Marker geometry of one support in model coordinates.
 
     Returns ``(closed, open, label)``: closed polylines, open polylines (each an (n, 2)
@@ -63,7 +63,7 @@ def _support_glyphs(support, s: float, domain: Polygon):
     else:
         return closed, lines, label
     for a, b in walls:
-        d = _unit(b - a)
+        d = unit_vector(b - a)
         if d is None:
             continue
         nrm = np.array([-d[1], d[0]])
@@ -78,12 +78,12 @@ def _support_glyphs(support, s: float, domain: Polygon):
     return closed, lines, label
 
 
-def _load_arrows(load, length: float):
+def load_arrows(load, length: float):
     """Arrows of one load as (tails, heads) arrays; heads touch the loaded points.
 
     A segment load gets a row of arrows along the segment. Arrows show direction only.
     """
-    d = _unit(load.force)
+    d = unit_vector(load.force)
     if d is None:
         return np.zeros((0, 2)), np.zeros((0, 2))
     if load.kind == "segment":
@@ -98,7 +98,7 @@ def _load_arrows(load, length: float):
 
 # --------------------------------------------------------------------------- figures
 
-def _figure(width: float, height: float):
+def new_figure(width: float, height: float):
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
@@ -107,18 +107,18 @@ def _figure(width: float, height: float):
     return fig
 
 
-def _png_bytes(fig, dpi: int = 150) -> bytes:
+def png_bytes(fig, dpi: int = 150) -> bytes:
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=dpi, metadata={"Software": None})
     return buf.getvalue()
 
 
-def _mpl_path(polys):
+def polygon_path(polys):
     from matplotlib.path import Path as MplPath
 
     verts, codes = [], []
     for poly in polys:
-        for ring in _rings(poly):
+        for ring in coordinate_rings(poly):
             pts = ring[:, :2]
             verts.append(pts)
             c = np.full(len(pts), MplPath.LINETO, dtype=np.uint8)
@@ -134,7 +134,7 @@ def design_png(result: Result) -> bytes:
     """Picture of the design: material over the domain, hatched keep regions, support
     markers, load arrows (direction only), caution line at the bottom; PNG bytes of
     :func:`design_figure`."""
-    return _png_bytes(design_figure(result))
+    return png_bytes(design_figure(result))
 
 
 def _case_colors(problem) -> dict:
@@ -152,32 +152,32 @@ def design_figure(result: Result):
     from matplotlib.patches import Patch, PathPatch
     from matplotlib.patches import Polygon as MplPolygon
 
-    domain, material, solid, empty, size = _scene(result)
+    domain, material, solid, empty, size = drawing_inputs(result)
     problem = result.problem
-    unit = _length_unit(problem)
+    unit = length_unit(problem)
     minx, miny, maxx, maxy = domain.bounds
     w, h = max(maxx - minx, 1e-12), max(maxy - miny, 1e-12)
     fig_w = 8.0
     fig_h = min(max(fig_w * 0.75 * h / w + 1.4, 3.0), 10.0)
-    fig = _figure(fig_w, fig_h)
+    fig = new_figure(fig_w, fig_h)
     ax = fig.add_axes((0.08, 0.14, 0.68, 0.78))
     s = 0.03 * size
 
-    ax.add_patch(PathPatch(_mpl_path([domain]), facecolor=COLOR_DOMAIN_FILL,
+    ax.add_patch(PathPatch(polygon_path([domain]), facecolor=COLOR_DOMAIN_FILL,
                            edgecolor=COLOR_DOMAIN, lw=0.8, zorder=1))
-    mp = _mpl_path(material)
+    mp = polygon_path(material)
     if mp is not None:
         ax.add_patch(PathPatch(mp, facecolor=COLOR_MATERIAL, edgecolor="none", zorder=2))
     for geom, color, hatch in ((solid, COLOR_KEEP_SOLID, "////"),
                                (empty, COLOR_KEEP_EMPTY, "xxx")):
-        p = _mpl_path(_polygons(geom))
+        p = polygon_path(polygon_parts(geom))
         if p is not None:
             ax.add_patch(PathPatch(p, facecolor="none", edgecolor=color, hatch=hatch,
                                    lw=0.8, zorder=3))
 
     sup_lines = []
     for sup in problem.supports:
-        closed, opens, label = _support_glyphs(sup, s, domain)
+        closed, opens, label = support_glyphs(sup, s, domain)
         for c in closed:
             filled = sup.fix == "xy" and sup.kind == "point"
             ax.add_patch(MplPolygon(c, closed=True, zorder=4, lw=1.0,
@@ -201,7 +201,7 @@ def design_figure(result: Result):
     arrows: dict = {}  # case name -> (tails, heads)
     for load in problem.loads:
         color = colors.get(load.case, COLOR_LOAD) if several else COLOR_LOAD
-        t, hd = _load_arrows(load, arrow_len)
+        t, hd = load_arrows(load, arrow_len)
         tails, heads = arrows.setdefault(load.case if several else None, ([], []))
         tails.append(t)
         heads.append(hd)
@@ -288,14 +288,14 @@ def _fit_axes(fig, axes, bottom: float = 0.0, margin: float = 0.01, rounds: int 
 def history_png(result: Result) -> bytes:
     """Compliance (log scale if it spans more than 10x) and material fraction with its
     target against iteration, as PNG bytes (see :func:`history_figure`)."""
-    return _png_bytes(history_figure(result))
+    return png_bytes(history_figure(result))
 
 
 def history_figure(result: Result):
     """The matplotlib Figure of :func:`history_png`: compliance on the left axis, material
     fraction and its target on the right one, the caution line at the bottom. The axes are
     shrunk as far as their rendered labels need, so nothing is clipped."""
-    fig = _figure(7.0, 4.2)
+    fig = new_figure(7.0, 4.2)
     ax = fig.add_axes((0.11, 0.16, 0.75, 0.74))
     axes = [ax]
     hist = result.history
@@ -331,3 +331,45 @@ def history_figure(result: Result):
         fig.transFigure.inverted()).y1
     _fit_axes(fig, axes, bottom=top_of_caution)
     return fig
+
+
+def comparison_png(comparison) -> bytes:
+    """Side by side, one panel per method: the crisp outline over the domain, titled with
+    the method and its crisp compliance; the caution line at the bottom."""
+    from matplotlib.patches import PathPatch
+
+    problem = comparison.problem
+    domain = domain_polygon(problem)
+    minx, miny, maxx, maxy = domain.bounds
+    w, h = max(maxx - minx, 1e-12), max(maxy - miny, 1e-12)
+    n = len(comparison.methods)
+    # Sizes in inches: a panel at most 4 wide and 4.5 tall (at least 2.6 wide, room for
+    # the title), then side margin, gap, title band and caution band.
+    panel_w = min(4.0, max(2.6, 4.5 * w / h))
+    panel_h = min(max(panel_w * h / w, 1.2), 6.0)
+    side, gap, top, foot = 0.2, 0.15, 0.75, 0.45
+    fig_w, fig_h = panel_w * n + gap * (n - 1) + 2 * side, panel_h + top + foot
+    fig = new_figure(fig_w, fig_h)
+    unit = problem.units.compliance
+    pad = 0.03 * max(w, h)
+    for k, m in enumerate(comparison.methods):
+        ax = fig.add_axes(((side + k * (panel_w + gap)) / fig_w, foot / fig_h,
+                           panel_w / fig_w, panel_h / fig_h))
+        ax.add_patch(PathPatch(polygon_path([domain]), facecolor=COLOR_DOMAIN_FILL,
+                               edgecolor=COLOR_DOMAIN, lw=0.8, zorder=1))
+        mp = polygon_path(polygon_parts(comparison.results[m].outline))
+        if mp is not None:
+            ax.add_patch(PathPatch(mp, facecolor=COLOR_MATERIAL, edgecolor="none", zorder=2))
+        ax.set_xlim(minx - pad, maxx + pad)
+        ax.set_ylim(miny - pad, maxy + pad)
+        ax.set_aspect("equal", adjustable="box")
+        ax.set_xticks([])
+        ax.set_yticks([])
+        for spine in ax.spines.values():
+            spine.set_visible(False)
+        row = comparison.rows[m]
+        ax.set_title(f"{m}\ncrisp compliance {row['crisp_compliance']:.5g} {unit}\n"
+                     f"material {row['material_fraction']:.3f}", fontsize=9)
+    fig.text(0.5, 0.05 / fig_h, "Crisp outlines analysed alike on one grid. " + CAUTION,
+             ha="center", va="bottom", fontsize=6.5, color="#5c677d", wrap=True)
+    return png_bytes(fig, dpi=120)

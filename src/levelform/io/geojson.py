@@ -6,14 +6,14 @@ import re
 
 from shapely.geometry import Polygon
 
-from ..geometry.shapes import _polygons
-from .scene import _length_unit, _rings, _round, _scene
+from ..geometry.shapes import polygon_parts
 from ..spec import Result
+from .scene import coordinate_rings, drawing_inputs, length_unit, round_coordinate
 
 # --------------------------------------------------------------------------- GeoJSON
 
 def _geojson_polygon(poly: Polygon):
-    return [[[_round(x), _round(y)] for x, y in ring[:, :2]] for ring in _rings(poly)]
+    return [[[round_coordinate(x), round_coordinate(y)] for x, y in ring[:, :2]] for ring in coordinate_rings(poly)]
 
 
 def outline_geojson(result: Result) -> str:
@@ -25,8 +25,8 @@ def outline_geojson(result: Result) -> str:
     """
     from shapely.geometry.polygon import orient
 
-    domain, material, solid, empty, _ = _scene(result)
-    unit = _length_unit(result.problem)
+    domain, material, solid, empty, _ = drawing_inputs(result)
+    unit = length_unit(result.problem)
     crs_note = f"planar model coordinates in {unit}, not WGS84"
 
     def feature(role, polys, extra=None):
@@ -41,13 +41,13 @@ def outline_geojson(result: Result) -> str:
 
     features = [
         feature("material", material, {"name": str(result.problem.name),
-                                        "area": _round(sum(p.area for p in material))}),
-        feature("domain", [domain], {"area": _round(domain.area)}),
+                                        "area": round_coordinate(sum(p.area for p in material))}),
+        feature("domain", [domain], {"area": round_coordinate(domain.area)}),
     ]
     if not solid.is_empty:
-        features.append(feature("keep_solid", _polygons(solid)))
+        features.append(feature("keep_solid", polygon_parts(solid)))
     if not empty.is_empty:
-        features.append(feature("keep_empty", _polygons(empty)))
+        features.append(feature("keep_empty", polygon_parts(empty)))
     doc = {"type": "FeatureCollection", "features": features}
     text = json.dumps(doc, indent=2, allow_nan=False, ensure_ascii=False)
     # One coordinate pair per line instead of one number per line.

@@ -13,7 +13,7 @@ import shapely.ops
 from shapely.geometry import MultiPolygon, Polygon
 from shapely.geometry.polygon import orient
 
-from ..geometry.shapes import _polygons
+from ..geometry.shapes import polygon_parts
 from ..spec import ProblemError
 
 # Pieces of a drawing are joined end to end when their ends lie within JOIN of each other,
@@ -102,7 +102,7 @@ def read_outline_report(path) -> OutlineRead:
         geom, source, warnings = _read_dxf(path)
     else:
         raise ProblemError(f"{path}: unknown outline format {path.suffix!r}; use .geojson or .dxf")
-    polys = [orient(p, 1.0) for p in _polygons(geom) if p.area > 0.0]
+    polys = [orient(p, 1.0) for p in polygon_parts(geom) if p.area > 0.0]
     if not polys:
         raise ProblemError(f"{path}: holds no outline with area")
     holes = sum(len(p.interiors) for p in polys)

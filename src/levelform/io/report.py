@@ -108,16 +108,15 @@ def _bodyfitted_paragraph(comparison) -> str:
 
 def report_html(comparison, overview_png: bytes | None = None) -> str:
     """The report as one HTML string. ``overview_png`` is the side-by-side figure (rendered
-    by :func:`levelform.compare.comparison_png` when not given)."""
-    from ..comparison import comparison_png
-    from .figures import design_png, history_png
+    by :func:`levelform.io.figures.comparison_png` when not given)."""
+    from .figures import comparison_png, design_png, history_png
 
     p = comparison.problem
     u = p.units
     ev = comparison.evaluation
     if overview_png is None:
         overview_png = comparison_png(comparison)
-    from .. import __version__
+    from ..version import __version__
 
     sections = []
     for m in comparison.methods:

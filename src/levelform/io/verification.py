@@ -18,21 +18,20 @@ COLOR_PAD = "#f4a261"
 
 def verification_record(v: Verification, problem: Problem) -> dict:
     """What verify.json holds: every figure of ``v``, the units and the caution."""
-    from .atomic import _jsonable
-    from .export import _software_version
+    from .atomic import jsonable
+    from .export import software_record, units_record
 
     units = problem.units
     data = v.summary()
     data.update({
-        "units": {"length": units.length, "force": units.force, "stress": units.stress,
-                  "compliance": units.compliance},
+        "units": units_record(units),
         "problem": {"name": problem.name, "source": problem.source},
         "element": "quadratic triangle (6 nodes)" if v.order == 2 else "linear triangle (3 nodes)",
         "analysis": "linear elastic, plane stress, body-fitted mesh of the exported outline",
-        "software": {"name": "levelform", "version": _software_version()},
+        "software": software_record(),
         "caution": CAUTION,
     })
-    return _jsonable(data)
+    return jsonable(data)
 
 
 def _sub_triangles(v: Verification) -> np.ndarray:
@@ -46,9 +45,9 @@ def _sub_triangles(v: Verification) -> np.ndarray:
 def stress_png(v: Verification, problem: Problem) -> bytes:
     """Von Mises stress (envelope over load cases) over the mesh, the peak marked, the
     caution line at the bottom; PNG bytes of :func:`stress_figure`."""
-    from .figures import _png_bytes
+    from .figures import png_bytes
 
-    return _png_bytes(stress_figure(v, problem))
+    return png_bytes(stress_figure(v, problem))
 
 
 def stress_figure(v: Verification, problem: Problem):
@@ -61,9 +60,9 @@ def stress_figure(v: Verification, problem: Problem):
     """
     from matplotlib.tri import Triangulation
 
-    from ..bodyfitted.check import _pad_polygon, _uses_pad
-    from ..fem.model import resolve_settings
-    from .figures import COLOR_DOMAIN, _figure
+    from ..bodyfitted.check import pad_polygon
+    from ..fem.model import resolve_settings, uses_pad
+    from .figures import COLOR_DOMAIN, new_figure
 
     units = problem.units
     xy = v.points
@@ -72,10 +71,10 @@ def stress_figure(v: Verification, problem: Problem):
     w, h = max(maxx - minx, 1e-12), max(maxy - miny, 1e-12)
     fig_w = 8.0
     fig_h = min(max(fig_w * 0.8 * h / w + 1.5, 3.2), 10.0)
-    fig = _figure(fig_w, fig_h)
+    fig = new_figure(fig_w, fig_h)
     ax = fig.add_axes((0.08, 0.15, 0.74, 0.75))
     settings = resolve_settings(problem)
-    pads = [s for s in problem.supports if s.kind == "point" and _uses_pad(s, settings)]
+    pads = [s for s in problem.supports if s.kind == "point" and uses_pad(s, settings)]
     # With pads to name, the colour bar makes room below it for the legend.
     cax = fig.add_axes((0.85, 0.36, 0.025, 0.54) if pads else (0.85, 0.15, 0.025, 0.75))
     tri = Triangulation(xy[:, 0], xy[:, 1], _sub_triangles(v))
@@ -86,7 +85,7 @@ def stress_figure(v: Verification, problem: Problem):
     cb.set_label(f"von Mises stress [{units.stress}]" + ("\nenvelope over load cases" if envelope else ""))
     handles = []
     for k, sup in enumerate(pads):
-        ring = np.asarray(_pad_polygon(sup.where, settings, v.mesh_size).exterior.coords)
+        ring = np.asarray(pad_polygon(sup.where, settings, v.mesh_size).exterior.coords)
         (line,) = ax.plot(ring[:, 0], ring[:, 1], color=COLOR_PAD, lw=1.3, ls="--", zorder=4,
                           label="support pad (held)" if k == 0 else "_nolegend_")
         if k == 0:

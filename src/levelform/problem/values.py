@@ -12,7 +12,15 @@ import re
 from shapely.geometry import Polygon
 from shapely.validation import explain_validity
 
-from .messages import add_error, join_key, number_text, point_text, quoted_list, show, spelling_hint
+from .messages import (
+    add_error,
+    join_key,
+    number_text,
+    point_text,
+    quoted_list,
+    show,
+    spelling_hint,
+)
 
 __all__ = ["MAX_MAGNITUDE", "check_keys", "finite_float", "is_number", "make_polygon", "read_box",
            "read_choice", "read_circle", "read_field", "read_flag", "read_number",

@@ -1,0 +1,69 @@
+"""The top-level Python API (levelform.load_problem / optimize / export / verify / compare):
+each is the documented route to the same figures the submodules give."""
+import dataclasses
+
+import pytest
+
+import levelform
+from levelform.bodyfitted.check import verify_outline
+from levelform.methods import method_names
+
+SMALL = """
+name = "api test plate"
+[material]
+E = 1000.0
+nu = 0.3
+thickness = 1.0
+[domain]
+outline = [[0, 0], [40, 0], [40, 20], [0, 20]]
+cell = 2.0
+[[support]]
+segment = [[0, 0], [0, 20]]
+fix = "xy"
+[[load]]
+point = [40, 10]
+force = [0, -1]
+[goal]
+material = 0.5
+[method]
+iterations = 20
+"""
+
+
+@pytest.fixture(scope="module")
+def run(tmp_path_factory):
+    path = tmp_path_factory.mktemp("api") / "p.toml"
+    path.write_text(SMALL, encoding="utf-8")
+    problem = levelform.load_problem(path)
+    seen = []
+    result = levelform.optimize(problem, progress=seen.append)
+    return problem, result, seen
+
+
+def test_optimize_reports_progress_and_export_refuses_a_full_folder(run, tmp_path):
+    problem, result, seen = run
+    assert [r.iteration for r in seen] == list(range(1, len(seen) + 1)) and len(seen) == result.iterations
+    files = levelform.export(result, tmp_path / "out")
+    assert (tmp_path / "out" / "summary.json") in files.values()
+    with pytest.raises(levelform.ProblemError, match="overwrite"):
+        levelform.export(result, tmp_path / "out")
+    assert levelform.export(result, tmp_path / "out", overwrite=True).keys() == files.keys()
+
+
+def test_verify_is_the_body_fitted_check(run):
+    problem, result, _ = run
+    v = levelform.verify(problem, result.outline, grid_compliance=result.compliance)
+    ref = verify_outline(problem, result.outline, grid_compliance=result.compliance)
+    assert v.ok and v.compliance == ref.compliance and v.elements == ref.elements
+    assert v.compliance > 0.0
+
+
+def test_compare_runs_the_registered_methods(run):
+    problem, _, _ = run
+    short = dataclasses.replace(problem, method=dataclasses.replace(problem.method, iterations=8))
+    table = levelform.compare(short, methods="levelset,density")
+    assert table.methods == ("levelset", "density")
+    assert table.rows["levelset"]["ratio_to_levelset"] == pytest.approx(1.0)
+    assert set(method_names()) >= set(table.methods)
+    with pytest.raises(levelform.ProblemError, match="unknown method"):
+        levelform.compare(short, methods="simulated-annealing")
