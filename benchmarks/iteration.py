@@ -37,7 +37,7 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "src"))
 sys.path.insert(0, str(ROOT / "benchmarks"))
 
-# Phases of levelform.methods.levelset, in loop order; "other" is the rest of the iteration.
+# Phases of levelform.methods.levelset_method, in loop order; "other" is the rest of the iteration.
 PHASES = ("fractions", "assembly", "solve", "sensitivity", "load path", "smoothing", "volume control",
           "hole seeding", "update", "reinitialization", "checkpoint")
 
@@ -49,7 +49,7 @@ def peak_gib() -> float:
 def run_size(nx: int, ny: int, iterations: int, skip: int, solver: str, save: str) -> dict:
     from solve import plate
 
-    from levelform.methods import levelset
+    from levelform.methods import levelset_method as levelset
     from levelform.timing import PhaseClock
 
     base = plate(nx)

@@ -6,9 +6,10 @@ import dataclasses as dc
 from pathlib import Path
 
 import numpy as np
+from conftest import example_problem
 
-import levelform.methods.levelset as levelset_method
-from levelform import load_problem, optimize
+import levelform.methods.levelset_method as levelset_method
+from levelform import optimize
 from levelform.cli import main
 from levelform.fem.analysis import PlateSystem
 
@@ -16,8 +17,7 @@ EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
 
 
 def _cantilever(iterations=60):
-    p = load_problem(EXAMPLES / "cantilever.toml")
-    return dc.replace(p, domain=dc.replace(p.domain, cell=2.0), method=dc.replace(p.method, iterations=iterations))
+    return example_problem("cantilever.toml", cell=2.0, iterations=iterations)
 
 
 def test_non_finite_solution_stops_with_a_status(monkeypatch):

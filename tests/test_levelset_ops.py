@@ -12,6 +12,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import shapely
+from conftest import plate_problem, rectangle
 from contourpy import FillType, contour_generator
 from shapely.geometry import Point, Polygon, box
 
@@ -514,15 +515,14 @@ def test_narrow_band_reinitialization_does_not_change_a_run(monkeypatch):
     # The loop marches only reinit_band(...) from the boundary (docs/performance.md); a run
     # must give the compliance history and outline of full marches (to rounding). A plate
     # with a lattice of holes at a cell of 0.5: distances reach well past the band.
-    from levelform.methods import levelset as method
-    from levelform.spec import Domain, Goal, Load, LoadCase, Material, Method, Problem, Support, Units
+    from levelform.methods import levelset_method as method
+    from levelform.spec import Load, Support
 
-    problem = Problem(
-        units=Units(), material=Material(E=1.0, nu=0.3, thickness=1.0),
-        domain=Domain(outline=((0, 0), (90, 0), (90, 45), (0, 45)), holes=(), cell=0.5),
-        supports=(Support("segment", ((0, 0), (0, 45)), "x", pad=False), Support("point", (90, 0), "y", pad=False)),
-        loads=(Load("point", (0.0, 45.0), (0.0, -1.0)),), cases=(LoadCase("main"),), regions=(), goal=Goal(0.5),
-        method=Method(pads=False, solver="direct", iterations=12, initial_holes=True, hole_spacing=30.0),
+    problem = plate_problem(
+        rectangle(0, 0, 90, 45), 0.5,
+        (Support("segment", ((0, 0), (0, 45)), "x", pad=False), Support("point", (90, 0), "y", pad=False)),
+        (Load("point", (0.0, 45.0), (0.0, -1.0)),),
+        method={"pads": False, "solver": "direct", "iterations": 12, "initial_holes": True, "hole_spacing": 30.0},
         name="band-test",
     )
     clipped = []

@@ -19,6 +19,7 @@ import numpy as np
 import pytest
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
+from conftest import plate_problem, rectangle
 
 from levelform.fem import solvers as fem
 from levelform.fem.analysis import PlateSystem
@@ -35,7 +36,7 @@ from levelform.fem.multigrid import (
     pcg,
 )
 from levelform.fem.solvers import DirectSolver, PardisoSolver, make_solver
-from levelform.spec import Domain, Goal, Load, LoadCase, Material, Method, Problem, Support, Units
+from levelform.spec import Load, LoadCase, Support
 
 E, NU, T = 2.0, 0.3, 1.5
 SMALL_COARSE = 300  # free dofs of the coarsest level in these tests: three coarsenings
@@ -48,15 +49,14 @@ def make_model(solver="auto"):
 
 
 def solver_problem(solver="auto"):
-    hole = ((36.0, 9.0), (47.0, 9.0), (47.0, 20.0), (36.0, 20.0))
-    return Problem(
-        units=Units(), material=Material(E=E, nu=NU, thickness=T),
-        domain=Domain(outline=((0, 0), (63, 0), (63, 31), (0, 31)), holes=(hole,), cell=1.0),
-        supports=(Support("segment", ((0, 0), (0, 31)), "x", pad=False), Support("point", (63, 0), "y", pad=False)),
-        loads=(Load("point", (0.0, 31.0), (0.0, -1.0), case="down"),
-               Load("point", (30.0, 31.0), (0.7, -0.4), case="side")),
-        cases=(LoadCase("down", 1.0), LoadCase("side", 0.5)), regions=(), goal=Goal(0.5),
-        method=Method(pads=False, solver=solver), name="solver-test",
+    hole = rectangle(36.0, 9.0, 47.0, 20.0)
+    return plate_problem(
+        rectangle(0, 0, 63, 31), 1.0,
+        (Support("segment", ((0, 0), (0, 31)), "x", pad=False), Support("point", (63, 0), "y", pad=False)),
+        (Load("point", (0.0, 31.0), (0.0, -1.0), case="down"),
+         Load("point", (30.0, 31.0), (0.7, -0.4), case="side")),
+        holes=(hole,), cases=(LoadCase("down", 1.0), LoadCase("side", 0.5)), E=E, nu=NU, t=T,
+        method={"pads": False, "solver": solver}, name="solver-test",
     )
 
 
@@ -284,7 +284,7 @@ def test_timing_the_phases_does_not_change_the_run():
     # compliance history and outline with and without it.
     import dataclasses
 
-    from levelform.methods import levelset
+    from levelform.methods import levelset_method as levelset
     from levelform.timing import PhaseClock
 
     problem = solver_problem("direct")

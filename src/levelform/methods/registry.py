@@ -40,7 +40,7 @@ _COMMON = ("name", "iterations", "pads", "pad_radius", "ersatz", "solver")
 
 METHODS: dict[str, MethodInfo] = {m.name: m for m in (
     MethodInfo("levelset", "level set: a signed-distance boundary moved by the shape sensitivity",
-               "levelset", True,
+               "levelset_method", True,
                _COMMON + ("smoothing", "seed_holes", "initial_holes", "step", "hole_spacing", "volume_step")),
     MethodInfo("density", "density-based (SIMP) with a filter, thresholded to a crisp outline",
                "density", False,
