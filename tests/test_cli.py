@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import json
+import math
 import subprocess
 import sys
 from pathlib import Path
@@ -164,3 +165,86 @@ def test_verify_a_results_folder_and_an_edited_outline(tmp_path, capsys):
     assert "--outline" in capsys.readouterr().err
     assert main(["verify", str(prob), "--outline", str(tmp_path / "nope.dxf")]) == 2
     assert "nope.dxf" in capsys.readouterr().err
+
+
+def test_verify_keeps_an_earlier_check_and_reproduces_the_runs_own_figures(tmp_path, capsys):
+    prob = _write(tmp_path, SMALL)
+    out = tmp_path / "out"
+    assert main(["run", str(prob), "-o", str(out), "-q"]) == 0  # with its own body-fitted check
+    before = {name: (out / name).read_bytes() for name in ("verify.json", "stress.png", "verify.vtu")}
+    capsys.readouterr()
+    # Not asked to: refused, exit 2, the folder named, the way out given, nothing touched.
+    assert main(["verify", str(out)]) == 2
+    err = capsys.readouterr().err
+    lines = [ln for ln in err.splitlines() if ln.strip()]
+    assert len(lines) == 1 and lines[0].startswith("error: ") and str(out) in lines[0]
+    assert "--overwrite" in lines[0] and "-o" in lines[0]
+    assert {name: (out / name).read_bytes() for name in before} == before
+    # Asked to: the check of the outline file gives the run's own figures exactly (the run
+    # checked the outline as written, not the unrounded one in memory).
+    run_record = json.loads(before["verify.json"])
+    assert main(["verify", str(out), "--overwrite"]) == 0
+    again = json.loads((out / "verify.json").read_text())
+    for key in ("elements", "nodes", "vertices", "compliance", "case_compliance", "max_von_mises",
+                "max_von_mises_at", "max_displacement", "area", "grid_compliance", "relative_difference"):
+        assert again[key] == run_record[key], key
+    # Another folder needs no flag.
+    assert main(["verify", str(out), "-o", str(tmp_path / "elsewhere")]) == 0
+    assert json.loads((tmp_path / "elsewhere" / "verify.json").read_text())["compliance"] == run_record["compliance"]
+
+
+def test_verify_says_what_it_read_from_a_dxf_of_lines(tmp_path, capsys):
+    import ezdxf
+
+    prob = _write(tmp_path, SMALL)
+    doc = ezdxf.new("R2010")
+    msp = doc.modelspace()
+    corners = [(0, 0), (40, 0), (40, 20), (0, 20)]
+    for a, b in zip(corners, corners[1:] + corners[:1]):
+        msp.add_line(a, b)
+    msp.add_circle((20, 10), 4.0)
+    msp.add_text("plate, 1 bore", dxfattribs={"insert": (5, 25), "layer": "NOTES"})
+    msp.add_line((50, 0), (55, 5))
+    doc.saveas(tmp_path / "lines.dxf")
+    checked = tmp_path / "checked"
+    assert main(["verify", str(prob), "--outline", str(tmp_path / "lines.dxf"), "-o", str(checked)]) == 0
+    cap = capsys.readouterr()
+    assert "lines.dxf: read 2 closed rings from 1 CIRCLE, 4 LINE: 1 solid piece with 1 hole" in cap.out
+    err = cap.err.splitlines()
+    assert any(ln.startswith("warning: lines.dxf: ignored 1 TEXT entity") and "layer NOTES" in ln for ln in err)
+    assert any(ln.startswith("warning: lines.dxf: LINE") and "from (50, 0) to (55, 5) was left open" in ln
+               for ln in err)
+    # The plate with its bore was checked: area 40 x 20 less the circle's, pi r^2, up to the
+    # chords (sagitta FLATTEN times the drawing's 55 width; segments cut off at most 2 pi r d).
+    from levelform.io.outline_read import FLATTEN
+
+    area = json.loads((checked / "verify.json").read_text())["area"]
+    exact = 800 - math.pi * 16
+    assert 0.0 <= area - exact <= 2 * math.pi * 4 * FLATTEN * 55
+    # Nothing usable: exit 2, error lines naming the file, nothing written.
+    doc = ezdxf.new("R2010")
+    doc.modelspace().add_line((0, 0), (40, 0))
+    doc.saveas(tmp_path / "bare.dxf")
+    assert main(["verify", str(prob), "--outline", str(tmp_path / "bare.dxf"), "-o", str(tmp_path / "none")]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("error: ") and "bare.dxf: no closed outline found" in err and "Traceback" not in err
+    assert not (tmp_path / "none").exists()
+
+
+def test_run_help_names_the_default_folder_after_the_file(capsys):
+    with pytest.raises(SystemExit):
+        main(["run", "--help"])
+    text = " ".join(capsys.readouterr().out.split())
+    assert "<problem file name>-results next to the file" in text
+
+
+def test_overwrite_without_verify_removes_the_earlier_check(tmp_path):
+    # The body-fitted files of an earlier run describe another outline: an overwriting run
+    # that skips the check must not leave them beside its own outline.
+    prob = _write(tmp_path, SMALL)
+    out = tmp_path / "out"
+    assert main(["run", str(prob), "-o", str(out), "-q"]) == 0
+    assert (out / "verify.json").is_file()
+    assert main(["run", str(prob), "-o", str(out), "-q", "--overwrite", "--no-verify"]) == 0
+    assert (out / "summary.json").is_file()
+    assert not any((out / name).exists() for name in ("verify.json", "stress.png", "verify.vtu"))

@@ -14,9 +14,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 import shapely
+from conftest import example_problem
 from shapely.geometry import Point, box
 
-from levelform import load_problem, optimize
+from levelform import optimize
 from levelform.comparison import (
     ERSATZ,
     FIELDS,
@@ -38,9 +39,7 @@ METHODS = ("levelset", "density", "evolutionary")
 
 def _small(name="cantilever.toml", cell=2.0, iterations=40):
     """A benchmark problem on a coarse grid with few iterations, for speed."""
-    p = load_problem(EXAMPLES / name)
-    return dc.replace(p, domain=dc.replace(p.domain, cell=cell),
-                      method=dc.replace(p.method, iterations=iterations))
+    return example_problem(name, cell=cell, iterations=iterations)
 
 
 # --------------------------------------------------------------------------- evaluation

@@ -17,19 +17,13 @@ from shapely.geometry.polygon import orient
 
 from levelform.spec import (
     CAUTION,
-    Domain,
-    Goal,
     GridInfo,
     IterationRecord,
     Load,
     LoadCase,
-    Material,
-    Method,
-    Problem,
     Region,
     Result,
     Support,
-    Units,
 )
 
 # levelform/__init__.py defines a function named ``export``; fetch the module itself.

@@ -20,6 +20,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import scipy.sparse.linalg as spla
+from conftest import ONE_CASE, plate_problem, rectangle
 from reference import parabolic_end_forces
 
 from levelform.fem.analysis import PlateSystem
@@ -29,33 +30,19 @@ from levelform.fem.elements import elasticity_matrix, element_stiffness
 from levelform.fem.model import build_model
 from levelform.fem.solvers import DirectSolver
 from levelform.levelset.operators import cell_fraction
-from levelform.spec import Domain, Goal, Load, LoadCase, Material, Method, Problem, Support, Units
+from levelform.spec import Load, LoadCase, Method, Support
 
 
 # ---------------------------------------------------------------------------------------
 # helpers
 # ---------------------------------------------------------------------------------------
-def make_problem(outline, cell, supports, loads, cases=(LoadCase("main"),), holes=(), E=1.0, nu=0.3, t=1.0):
+def make_problem(outline, cell, supports, loads, cases=ONE_CASE, holes=(), E=1.0, nu=0.3, t=1.0):
     """A Problem built straight from the dataclasses; pads off so forces are exact nodal forces."""
-    return Problem(
-        units=Units("mm", "N"),
-        material=Material(E=E, nu=nu, thickness=t),
-        domain=Domain(outline=tuple(outline), holes=tuple(holes), cell=cell),
-        supports=tuple(supports),
-        loads=tuple(loads),
-        cases=tuple(cases),
-        regions=(),
-        goal=Goal(0.5),
-        # The direct solver: these checks hold the discretization to closed forms at 1e-8
-        # and finer, so no solver tolerance may enter; tests/test_solvers.py checks every
-        # other solver against it.
-        method=Method(pads=False, solver="direct"),
-        name="fem-test",
-    )
-
-
-def rectangle(x0, y0, x1, y1):
-    return ((x0, y0), (x1, y0), (x1, y1), (x0, y1))
+    # The direct solver: these checks hold the discretization to closed forms at 1e-8
+    # and finer, so no solver tolerance may enter; tests/test_solvers.py checks every
+    # other solver against it.
+    return plate_problem(outline, cell, supports, loads, cases=cases, holes=holes, E=E, nu=nu, t=t,
+                         method={"pads": False, "solver": "direct"}, name="fem-test")
 
 
 def active_node_xy(model):

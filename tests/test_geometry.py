@@ -4,32 +4,23 @@ import math
 import numpy as np
 import pytest
 import shapely
+from conftest import plate_problem
 from shapely.geometry import MultiPolygon, Point, Polygon, box
 
-from levelform.geometry.measure import outline_metrics, smallest_member_width
+from levelform.geometry.measure import outline_holes, outline_metrics, smallest_member_width
 from levelform.geometry.outline import outline_from_levelset
-from levelform.geometry.shapes import domain_polygon, keep_regions, region_geometry
+from levelform.geometry.shapes import domain_polygon, item_geometry, keep_regions, region_geometry
 from levelform.spec import (
-    Domain,
-    Goal,
     GridInfo,
-    LoadCase,
-    Material,
-    Method,
-    Problem,
+    Load,
     ProblemError,
     Region,
-    Units,
+    Support,
 )
 
 
 def make_problem(outline, holes=(), regions=(), cell=0.1):
-    return Problem(
-        units=Units("mm", "N"),
-        material=Material(E=210e3, nu=0.3, thickness=1.0),
-        domain=Domain(outline=tuple(outline), holes=tuple(tuple(h) for h in holes), cell=cell),
-        supports=(), loads=(), cases=(LoadCase("main"),), regions=tuple(regions),
-        goal=Goal(0.5), method=Method(), name="geom-test")
+    return plate_problem(outline, cell, holes=holes, regions=regions, E=210e3, name="geom-test")
 
 
 def grid_nodes(grid):
@@ -185,6 +176,43 @@ def test_region_geometry_shapes():
         region_geometry(Region("solid", "circle", (0, 0, -1), key="region[1]"))
 
 
+def test_region_geometry_as_built_is_the_same_shape():
+    # Orientation changes the order of the vertices, not the shape (RFC 7946, 3.1.6: the
+    # exterior ring counter-clockwise): same area, same vertex set; only the oriented one
+    # runs counter-clockwise. A shapely buffer ring runs clockwise (GEOS convention).
+    for r in (Region("solid", "circle", (1.0, 2.0, 3.0)),
+              Region("empty", "polygon", ((0.0, 0.0), (0.0, 2.0), (2.0, 0.0)))):
+        built, oriented = region_geometry(r, oriented=False), region_geometry(r)
+        assert oriented.exterior.is_ccw and not built.exterior.is_ccw
+        assert built.area == pytest.approx(oriented.area, rel=1e-15)
+        assert set(built.exterior.coords) == set(oriented.exterior.coords)
+
+
+def test_item_geometry_of_supports_and_loads():
+    # Closed forms: a 3-4-5 segment has length 5; a 2 x 3 box has area 6, perimeter 10.
+    p = item_geometry(Load("point", (1.0, 2.0), (0.0, -1.0)))
+    assert (p.geom_type, p.x, p.y) == ("Point", 1.0, 2.0)
+    seg = item_geometry(Load("segment", ((0.0, 0.0), (3.0, 4.0)), (1.0, 0.0)))
+    assert seg.geom_type == "LineString" and seg.length == pytest.approx(5.0)
+    b = item_geometry(Support("box", (1.0, 1.0, 3.0, 4.0), "xy"))
+    assert b.geom_type == "Polygon" and b.area == pytest.approx(6.0)
+    assert b.length == pytest.approx(10.0) and b.bounds == (1.0, 1.0, 3.0, 4.0)
+
+
+def test_outline_holes_of_a_single_polygon_and_of_pieces():
+    # Hand count: the plate has the domain's bolt hole and two openings of its own; a
+    # second piece has one more. The domain's hole never counts.
+    dom = Polygon([(0, 0), (20, 0), (20, 6), (0, 6)], [[(4, 2), (6, 2), (6, 4), (4, 4)]])
+    plate = Polygon([(0, 0), (10, 0), (10, 6), (0, 6)],
+                    [dom.interiors[0], [(1, 1), (2, 1), (2, 2), (1, 2)],
+                     [(7, 1), (8, 1), (8, 2), (7, 2)]])
+    other = Polygon([(12, 0), (20, 0), (20, 6), (12, 6)], [[(14, 2), (16, 2), (16, 4), (14, 4)]])
+    assert outline_holes(plate, dom) == 2
+    assert outline_holes(MultiPolygon([plate, other]), dom) == 3
+    assert outline_holes(MultiPolygon([plate, other]), None) == 4  # no domain: every ring
+    assert outline_holes(MultiPolygon(), dom) == 0
+
+
 def test_keep_regions_union_and_clip():
     regions = [Region("solid", "box", (-1, -1, 1, 1)), Region("solid", "box", (0, 0, 2, 2)),
                Region("empty", "circle", (5, 3, 1))]
@@ -296,3 +324,57 @@ def test_simplification_keeps_the_area_within_half_a_percent():
     n_out = sum(len(p.exterior.coords) + sum(len(r.coords) for r in p.interiors) for p in out.geoms)
     n_raw = sum(len(p.exterior.coords) + sum(len(r.coords) for r in p.interiors) for p in getattr(raw, "geoms", [raw]))
     assert n_out < n_raw
+
+
+# A plate 40 x 20 with a 6 x 6 bolt hole near its supported edge, kept solid around the
+# hole so the hole stays inside the material; few iterations on a coarse grid.
+HOLED_PLATE = """
+name = "plate with a bolt hole"
+[material]
+E = 1000.0
+nu = 0.3
+thickness = 1.0
+[domain]
+outline = [[0, 0], [40, 0], [40, 20], [0, 20]]
+holes = [[[6, 7], [12, 7], [12, 13], [6, 13]]]
+cell = 2.0
+[[support]]
+segment = [[0, 0], [0, 20]]
+fix = "xy"
+[[load]]
+point = [40, 10]
+force = [0, -1]
+[[region]]
+keep = "solid"
+circle = [9, 10, 6]
+[goal]
+material = 0.5
+[method]
+iterations = 30
+smoothing = 4.0
+"""
+
+
+def test_printed_hole_count_is_the_summary_count(tmp_path, capsys):
+    import json
+    import re
+
+    from levelform.cli import main
+
+    path = tmp_path / "holed.toml"
+    path.write_text(HOLED_PLATE, encoding="utf-8")
+    out = tmp_path / "out"
+    assert main(["run", str(path), "-o", str(out), "-q", "--no-verify"]) == 0
+    printed = re.findall(r"(\d+) holes", capsys.readouterr().out)
+    summary = json.loads((out / "summary.json").read_text(encoding="utf-8"))
+    # Independent count from outline.geojson: in a GeoJSON polygon every ring after the
+    # first is a hole (RFC 7946, 3.1.6); those matching the domain's hole are not the
+    # design's.
+    features = json.loads((out / "outline.geojson").read_text(encoding="utf-8"))["features"]
+    (material,) = [f for f in features if f["properties"]["role"] == "material"]
+    rings = [r for poly in material["geometry"]["coordinates"] for r in poly[1:]]
+    domain_hole = box(6, 7, 12, 13)
+    own = [r for r in rings if Polygon(r).symmetric_difference(domain_hole).area > 0.01 * 36]
+    assert len(rings) > len(own)  # the domain's hole is in the outline, and is not counted
+    assert printed == [str(summary["holes"])]
+    assert summary["holes"] == len(own)

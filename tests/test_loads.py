@@ -4,21 +4,19 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from conftest import plate_problem, rectangle
 
 from levelform.fem.analysis import PlateSystem
 from levelform.physics import PlaneStress
 from levelform.fem.model import build_model
-from levelform.spec import Domain, Goal, Load, LoadCase, Material, Method, Problem, Support, Units
+from levelform.spec import Load, Support
 
 
 def _plate(cell, pads, load=None):
-    return Problem(
-        units=Units(), material=Material(E=1000.0, nu=0.3, thickness=1.0),
-        domain=Domain(outline=((0, 0), (40, 0), (40, 20), (0, 20)), holes=(), cell=cell),
-        supports=(Support("segment", ((0, 0), (0, 20)), "xy", pad=False),),
-        loads=(load or Load("point", (40.0, 10.0), (0.0, -1.0)),),
-        cases=(LoadCase("main"),), regions=(), goal=Goal(0.5),
-        method=Method(pads=pads, pad_radius=2.0),
+    return plate_problem(
+        rectangle(0, 0, 40, 20), cell, [Support("segment", ((0, 0), (0, 20)), "xy", pad=False)],
+        [load or Load("point", (40.0, 10.0), (0.0, -1.0))], E=1000.0,
+        method={"pads": pads, "pad_radius": 2.0},
     )
 
 

@@ -22,6 +22,7 @@ import math
 import ezdxf
 import numpy as np
 import pytest
+from conftest import ONE_CASE, plate_problem, rectangle
 from reference import parabolic_end_forces
 from shapely.geometry import MultiPolygon, Point, Polygon, box
 
@@ -34,31 +35,16 @@ from levelform.io.outline_read import read_outline
 from levelform.io.verification import write_verification
 from levelform.spec import (
     CAUTION,
-    Domain,
-    Goal,
     Load,
     LoadCase,
-    Material,
-    Method,
-    Problem,
     ProblemError,
     Support,
-    Units,
 )
 
 
-def make_problem(outline, cell, supports, loads, *, pads=False, E=1.0, nu=0.3, t=1.0,
-                 cases=(LoadCase("main"),)):
-    return Problem(
-        units=Units("mm", "N"),
-        material=Material(E=E, nu=nu, thickness=t),
-        domain=Domain(outline=tuple(outline), holes=(), cell=cell),
-        supports=tuple(supports), loads=tuple(loads), cases=tuple(cases), regions=(),
-        goal=Goal(0.5), method=Method(pads=pads, iterations=20), name="verify-test")
-
-
-def rectangle(x0, y0, x1, y1):
-    return ((x0, y0), (x1, y0), (x1, y1), (x0, y1))
+def make_problem(outline, cell, supports, loads, *, pads=False, E=1.0, nu=0.3, t=1.0, cases=ONE_CASE):
+    return plate_problem(outline, cell, supports, loads, cases=cases, E=E, nu=nu, t=t,
+                         method={"pads": pads, "iterations": 20}, name="verify-test")
 
 
 def grid_compliance(problem):
@@ -283,3 +269,131 @@ def test_read_outline_bad_files_raise_problem_error(tmp_path, name, content, mes
     with pytest.raises(ProblemError, match=message) as info:
         read_outline(path)
     assert name in str(info.value)
+
+
+# --------------------------------------------------------------------------------------- DXF drawn in CAD
+def _square_of_lines_with_a_circle(path, a=40.0, r=6.0, centre=(20.0, 20.0), extra=None):
+    """A square plate drawn with four LINEs (out of order, two of them reversed) and a CIRCLE
+    inside it, as a CAD user would draw it; ezdxf writes the file."""
+    doc = ezdxf.new("R2010")
+    msp = doc.modelspace()
+    msp.add_line((a, 0), (a, a), dxfattribs={"layer": "PLATE"})
+    msp.add_line((0, 0), (a, 0), dxfattribs={"layer": "PLATE"})
+    msp.add_line((0, a), (a, a), dxfattribs={"layer": "PLATE"})  # reversed
+    msp.add_line((0, 0), (0, a), dxfattribs={"layer": "PLATE"})  # reversed
+    msp.add_circle(centre, r, dxfattribs={"layer": "BORE"})
+    if extra:
+        extra(msp)
+    doc.saveas(path)
+    return path
+
+
+def test_dxf_of_lines_and_a_circle_reads_as_a_plate_with_a_hole(tmp_path):
+    from levelform.io.outline_read import FLATTEN, read_outline_report
+
+    a, r = 40.0, 6.0
+    rep = read_outline_report(_square_of_lines_with_a_circle(tmp_path / "plate.dxf", a, r))
+    assert (rep.pieces, rep.holes) == (1, 1) and rep.warnings == ()
+    assert "2 closed rings from 1 CIRCLE, 4 LINE" in rep.read and "1 solid piece with 1 hole" in rep.read
+    # Closed form a^2 - pi r^2. The circle becomes chords with their ends on it and a sagitta
+    # of at most d = FLATTEN * a (the drawing's size is a); each chord cuts off a circular
+    # segment of area at most chord * d, so the hole shrinks by at most 2 pi r d (elementary
+    # geometry) and the plate read is larger than the exact one by no more than that.
+    exact = a * a - math.pi * r * r
+    d = FLATTEN * a
+    assert 0.0 <= rep.outline.area - exact <= 2 * math.pi * r * d
+    poly = rep.outline.geoms[0]
+    assert Polygon(poly.exterior).area == pytest.approx(a * a, rel=1e-12)  # the LINEs meet exactly
+    hole = Polygon(poly.interiors[0])
+    assert hole.centroid.distance(Point(20, 20)) < 1e-9 and r - d <= math.sqrt(hole.area / math.pi) <= r
+
+
+def test_dxf_arcs_bulges_and_gaps_are_joined_or_reported(tmp_path):
+    from levelform.io.outline_read import FLATTEN, JOIN, read_outline_report
+
+    doc = ezdxf.new("R2010")
+    msp = doc.modelspace()
+    # A slot: two LINEs and two half-circle ARCs (ARCs run counter-clockwise by the DXF
+    # reference), with a gap far below the joining tolerance at one joint.
+    gap = 1e-3 * JOIN * 40.0
+    msp.add_line((0, 0), (20, 0))
+    msp.add_arc((20, 5), 5, 270, 90)
+    msp.add_line((20 + gap, 10), (0, 10))
+    msp.add_arc((0, 5), 5, 90, 270)
+    # A disk drawn as one closed LWPOLYLINE of two bulge-1 (half circle) segments, radius 3.
+    msp.add_lwpolyline([(30, 5, 1.0), (36, 5, 1.0)], format="xyb", close=True)
+    # Not outline geometry: a note, and a triangle of LINEs whose last one stops 0.01 short.
+    msp.add_text("drill 2x", dxfattribs={"insert": (50, 50), "layer": "NOTES"})
+    msp.add_line((60, 0), (70, 0))
+    msp.add_line((70, 0), (65, 8))
+    msp.add_line((65, 8), (60.01, 0))
+    path = tmp_path / "drawing.dxf"
+    doc.saveas(path)
+    rep = read_outline_report(path)
+    assert (rep.pieces, rep.holes) == (2, 0)
+    slot, disk = sorted(rep.outline.geoms, key=lambda p: p.centroid.x)
+    # Closed forms: a 20 x 10 rectangle plus a disk of radius 5; a disk of radius 3.
+    # Chords lie inside arcs: areas a little under, by at most perimeter * sagitta.
+    d = FLATTEN * 75.0  # the sagitta: FLATTEN times the drawing's size (x from -5 to 70)
+    assert 0.0 <= 200 + math.pi * 25 - slot.area <= 2 * math.pi * 5 * d
+    assert 0.0 <= math.pi * 9 - disk.area <= 2 * math.pi * 3 * d
+    text = "\n".join(rep.warnings)
+    assert "ignored 1 TEXT entity" in text and "layer NOTES" in text and "near (" in text
+    assert ("a chain of 3 pieces (3 LINE, layer 0) from (60, 0) to (60.01, 0) was left open: its ends lie "
+            "0.01 apart") in text
+    assert "2 ARC, 2 LINE, 1 LWPOLYLINE" in rep.read and text.count("left open") == 1
+    assert all(w.startswith("drawing.dxf: ") for w in rep.warnings)
+
+
+def test_dxf_with_nothing_closed_is_a_clear_error(tmp_path):
+    from levelform.io.outline_read import read_outline_report
+
+    doc = ezdxf.new("R2010")
+    msp = doc.modelspace()
+    msp.add_line((0, 0), (10, 0))
+    msp.add_line((10, 0), (10, 10))
+    msp.add_text("plate")
+    doc.saveas(tmp_path / "open.dxf")
+    with pytest.raises(ProblemError) as info:
+        read_outline_report(tmp_path / "open.dxf")
+    msgs = info.value.problems
+    assert "open.dxf: no closed outline found (read 2 LINE entities, 1 TEXT entity)" in msgs[0]
+    assert any("a chain of 2 pieces (2 LINE, layer 0) from (0, 0) to (10, 10) was left open" in m for m in msgs)
+    assert any("ignored 1 TEXT entity" in m for m in msgs)
+
+
+# --------------------------------------------------------------------------------------- stress map
+def test_stress_figure_names_the_envelope_and_marks_support_pads():
+    # Reference: the problem itself (its case names, its padded point supports and the pad
+    # radius levelform resolves for it); the figure must say what it shows.
+    from levelform.fem.model import resolve_settings
+    from levelform.io.verification import stress_figure
+
+    problem = dc.replace(
+        make_problem(rectangle(0, 0, 60, 30), 2.0,
+                     [Support("point", (3, 3), "xy", key="support[0]"),
+                      Support("point", (57, 3), "y", key="support[1]")],
+                     [Load("point", (30, 30), (0.0, -1.0), key="load[0]", case="wind"),
+                      Load("point", (60, 15), (1.0, 0.0), key="load[1]", case="snow")], pads=True),
+        cases=(LoadCase("wind"), LoadCase("snow")))
+    v = verify_outline(problem, box(0, 0, 60, 30).difference(Point(30, 15).buffer(6)), mesh_size=2.0)
+    assert v.ok
+    fig = stress_figure(v, problem)
+    ax = fig.axes[0]
+    assert "von Mises, envelope over load cases wind, snow" in ax.get_title()
+    legend = [t.get_text() for lg in fig.legends for t in lg.get_texts()]
+    assert "support pad (held)" in legend
+    # One dashed ring per padded support, every vertex at the pad radius from its centre.
+    r = resolve_settings(problem).pad_radius
+    rings = [ln for ln in ax.get_lines() if ln.get_linestyle() == "--"]
+    assert len(rings) == 2
+    for ln, sup in zip(rings, problem.supports):
+        xy = ln.get_xydata()
+        assert np.allclose(np.hypot(xy[:, 0] - sup.where[0], xy[:, 1] - sup.where[1]), r, rtol=1e-9)
+    assert any(f"(case {v.max_von_mises_case})" in t.get_text() for t in ax.texts)
+    # One case, no pads: no envelope wording, no pad legend.
+    one = dc.replace(problem, loads=problem.loads[:1], cases=(LoadCase("wind"),),
+                     method=dc.replace(problem.method, pads=False))
+    w = verify_outline(one, box(0, 0, 60, 30), mesh_size=2.0)
+    fig1 = stress_figure(w, one)
+    assert "envelope" not in fig1.axes[0].get_title() and not fig1.legends
