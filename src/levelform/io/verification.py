@@ -60,7 +60,7 @@ def stress_figure(v: Verification, problem: Problem):
     """
     from matplotlib.tri import Triangulation
 
-    from ..bodyfitted.check import pad_polygon
+    from ..bodyfitted.mesh import pad_polygon
     from ..fem.model import resolve_settings, uses_pad
     from .figures import COLOR_DOMAIN, new_figure
 
