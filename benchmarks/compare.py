@@ -4,7 +4,8 @@ Runs every method on each benchmark problem, evaluates every crisp outline by th
 analysis (levelform.compare.evaluate_crisp), prints the full table of each problem and
 then a markdown table for docs/comparison.md.
 
-    python benchmarks/compare.py                      # all four problems, all methods
+    python benchmarks/compare.py                      # all twelve problems, all methods
+    python benchmarks/compare.py examples/portal_knee.toml   # only the files given
     python benchmarks/compare.py --methods levelset,density --out /tmp/cmp
 """
 from __future__ import annotations
@@ -16,7 +17,11 @@ import time
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
-PROBLEMS = ("mbb_half_beam.toml", "cantilever.toml", "two_bar.toml", "plate_with_openings.toml")
+PROBLEMS = (
+    "mbb_half_beam.toml", "cantilever.toml", "two_bar.toml", "plate_with_openings.toml",
+    "shelf_bracket.toml", "deck_girder_web.toml", "duct_console.toml", "edge_welded_bracket.toml",
+    "three_bolt_hanger.toml", "bolted_gusset.toml", "post_base_plate.toml", "portal_knee.toml",
+)
 
 
 def _num(v, digits=5):
@@ -62,6 +67,7 @@ MD_COLUMNS = (
     ("seconds", "time [s]", 3),
     ("own_compliance", "own compliance", 5),
     ("converged", "converged", None),
+    ("limits_met", "limits met", None),
 )
 
 

@@ -67,3 +67,25 @@ def test_compare_runs_the_registered_methods(run):
     assert set(method_names()) >= set(table.methods)
     with pytest.raises(levelform.ProblemError, match="unknown method"):
         levelform.compare(short, methods="simulated-annealing")
+
+
+def test_comparison_says_which_outlines_meet_the_fabrication_limits(run):
+    # Only the level set shapes its design to [fabrication] limits; the comparison measures
+    # every outline against them (geometry.measure.fabrication_report) and the report says so.
+    from levelform.io.report import report_html
+    from levelform.spec import Fabrication
+
+    problem, _, _ = run
+    limited = dataclasses.replace(problem, fabrication=Fabrication(min_member=4.0),
+                                  method=dataclasses.replace(problem.method, iterations=8))
+    table = levelform.compare(limited, methods="levelset,density")
+    for m in table.methods:
+        row = table.rows[m]
+        assert isinstance(row["limits_met"], bool)
+        assert set(row["limits"]) == {"min_member"}
+        measured = row["limits"]["min_member"]
+        assert row["limits_met"] == (measured is not None and measured >= 4.0 * (1 - 1e-3))
+    html = report_html(table, overview_png=b"\x89PNG\r\n\x1a\n")
+    assert "fabrication limits met (min_member)" in html and "only the level-set method shapes" in html
+    free = levelform.compare(dataclasses.replace(limited, fabrication=Fabrication()), methods="density")
+    assert free.rows["density"]["limits_met"] is None

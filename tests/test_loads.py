@@ -56,3 +56,17 @@ def test_line_load_total_and_consistent_nodal_values():
     assert nz.size == 21
     assert np.count_nonzero(np.isclose(nz, q * 0.5)) == 2
     assert np.count_nonzero(np.isclose(nz, q * 1.0)) == 19
+
+
+def test_pads_only_where_the_force_is_concentrated():
+    # The pad rule (docs/method.md): points always, segments and boxes only when no longer
+    # than PAD_SHORT pad radii; a user's own pad flag wins either way.
+    from levelform.fem.model import PAD_SHORT, needs_pad
+
+    r = 2.0
+    assert needs_pad(Load(kind="point", where=(1.0, 1.0), force=(0.0, -1.0)), r)
+    short = Support(kind="segment", where=((0.0, 0.0), (0.0, PAD_SHORT * r)), fix="xy")
+    long = Support(kind="segment", where=((0.0, 0.0), (0.0, PAD_SHORT * r * 1.01)), fix="xy")
+    assert needs_pad(short, r) and not needs_pad(long, r)
+    assert not needs_pad(Support(kind="box", where=(0.0, 0.0, 3 * PAD_SHORT * r, 1.0), fix="xy"), r)
+    assert needs_pad(Support(kind="box", where=(0.0, 0.0, 1.0, 1.0), fix="xy"), r)

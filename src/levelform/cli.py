@@ -157,8 +157,11 @@ def _solve_and_export(problem, outdir: Path, quiet: bool, overwrite: bool, resum
         for name in VERIFY_FILES:
             (outdir / name).unlink(missing_ok=True)
     u = problem.units
+    best = result.exported_iteration
     print(
-        f"\n{result.status} after {result.iterations} iterations in {result.seconds:.1f} s\n"
+        f"\n{result.status} after {result.iterations} iterations in {result.seconds:.1f} s"
+        + (f"; the design exported is iteration {best}'s, the best reached at the goal"
+           if best is not None and best != result.iterations else "") + "\n"
         f"  compliance         {result.compliance:.6g} {u.compliance}"
         + ("" if result.crisp_compliance is None else
            f" (the method's own design); crisp outline {result.crisp_compliance:.6g} {u.compliance}")
@@ -171,6 +174,11 @@ def _solve_and_export(problem, outdir: Path, quiet: bool, overwrite: bool, resum
         f"\n\nCaution: {CAUTION}",
         flush=True,
     )
+    for key, lim in (result.fabrication or {}).get("limits", {}).items():
+        if not lim.get("met", True):
+            measured = "nothing measurable" if lim.get("measured") is None else f"{lim['measured']:.4g} {u.length}"
+            print(f"warning: fabrication.{key}: not met: the outline measures {measured} against the "
+                  f"{lim['required']:.4g} {u.length} asked for", file=sys.stderr)
     if result.settings.get("solver_note"):
         print(f"note: {result.settings['solver_note']}", file=sys.stderr)
     if interrupted:

@@ -17,7 +17,7 @@ import shapely
 
 from .fem.analysis import PlateSystem
 from .fem.model import build_model
-from .geometry.measure import outline_metrics
+from .geometry.measure import fabrication_report, outline_metrics
 from .geometry.shapes import domain_polygon
 from .io.comparison_files import (  # noqa: F401  (the writers, importable from here too)
     FIELDS,
@@ -188,6 +188,7 @@ def compare_methods(problem: Problem, methods=DEFAULT_METHODS, progress=None,
         ev = evaluate_crisp(problem, result.outline, refine=refine)
         evaluation = {k: ev[k] for k in ("grid_cell", "ersatz", "refine", "n_cells", "solver")}
         metrics = outline_metrics(result.outline, domain)
+        limits = fabrication_report(result.outline, domain, problem.fabrication)["limits"]
         body, body_ok = _bodyfitted(problem, result.outline, ev["compliance"])
         rows[name] = {
             "method": name,
@@ -209,6 +210,10 @@ def compare_methods(problem: Problem, methods=DEFAULT_METHODS, progress=None,
             "seconds": float(result.seconds),
             "converged": bool(result.converged),
             "status": str(result.status),
+            # Whether the outline meets every [fabrication] limit (None: none asked for), and
+            # the measured value of each; only the level set shapes its design to them.
+            "limits_met": (all(v["met"] for v in limits.values()) if limits else None),
+            "limits": {k: v["measured"] for k, v in limits.items()},
             "case_compliance": ev["case_compliance"],
         }
         results[name] = result

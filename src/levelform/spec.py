@@ -203,3 +203,6 @@ class Result:
     crisp_compliance: Optional[float] = None
     # Fabrication limits asked for and what the outline achieves (see geometry.fabrication_report).
     fabrication: dict = field(default_factory=dict)
+    # The iteration whose design is exported: the best feasible one the run reached (at the
+    # goal volume, load path intact), which need not be the last. None: the last.
+    exported_iteration: Optional[int] = None

@@ -39,6 +39,12 @@ class Settings:
         return dict(self.__dict__)
 
 
+# Default Helmholtz smoothing length of the level set's velocity, as a share of
+# sqrt(domain area) (docs/method.md, defaults: measured against the density and
+# evolutionary methods on the benchmark set).
+SMOOTHING_SHARE = 0.04
+
+
 def resolve_settings(problem: Problem) -> Settings:
     """Defaults scale with the domain (L = sqrt(domain area)), never with the cell size,
     so refining the grid leaves the design unchanged; each is floored so that it stays
@@ -46,7 +52,7 @@ def resolve_settings(problem: Problem) -> Settings:
     m = problem.method
     h = problem.domain.cell
     L = math.sqrt(domain_polygon(problem).area)
-    smoothing = m.smoothing if m.smoothing is not None else max(0.04 * L, 1.0 * h)
+    smoothing = m.smoothing if m.smoothing is not None else max(SMOOTHING_SHARE * L, 1.0 * h)
     pad = m.pad_radius if m.pad_radius is not None else max(0.025 * L, 1.5 * h)
     step = m.step if m.step is not None else max(0.025 * L, 0.5 * h)
     spacing = m.hole_spacing if m.hole_spacing is not None else max(L / 4.0, 4.0 * h)
@@ -224,9 +230,35 @@ def _pad_load_weights(centre, radius, domain, grid, active, cell_nodes, node_num
     return idx, w / w.sum()
 
 
+# A segment or box no longer than this many pad radii counts as concentrated: its stresses
+# are singular over a length the grid cannot spread, so it gets a pad by default.
+PAD_SHORT = 4.0
+# Depth, in cells, of the solid skin under a line load that gets no pad.
+LOAD_SKIN_CELLS = 1.0
+
+
+def needs_pad(item, pad_radius: float) -> bool:
+    """Whether a support or load concentrates its force enough to need a pad: a point, or
+    a segment (a box: its longer side) no longer than PAD_SHORT pad radii. A long segment
+    support or line load spreads its force itself; a pad strip along it would only take
+    material from the design."""
+    if item.kind == "point":
+        return True
+    if item.kind == "segment":
+        (ax, ay), (bx, by) = item.where
+        length = math.hypot(bx - ax, by - ay)
+    else:
+        x0, y0, x1, y1 = item.where
+        length = max(abs(x1 - x0), abs(y1 - y0))
+    return length <= PAD_SHORT * pad_radius
+
+
 def uses_pad(item, settings: Settings) -> bool:
-    """Whether a support or load gets a solid pad: its own ``pad`` flag, else ``[method] pads``."""
-    return settings.pads if item.pad is None else bool(item.pad)
+    """Whether a support or load gets a solid pad: its own ``pad`` flag, else
+    ``[method] pads`` where :func:`needs_pad` says the item needs one."""
+    if item.pad is not None:
+        return bool(item.pad)
+    return settings.pads and needs_pad(item, settings.pad_radius)
 
 
 def build_model(problem: Problem) -> Model:
@@ -308,6 +340,10 @@ def build_model(problem: Problem) -> Model:
             np.add.at(F[:, c], dpn * idx + k, value * w)
         if padded:
             pads.append(g.buffer(settings.pad_radius, quad_segs=16))
+        elif ld.kind == "segment":
+            # no pad, but a skin one cell deep: a line load acts on material (as the
+            # evolutionary method keeps every cell with a loaded corner)
+            pads.append(g.buffer(LOAD_SKIN_CELLS * h, quad_segs=4))
 
     _check_mechanisms(active, cell_nodes, node_number, fixed, xy, grid, physics)
 

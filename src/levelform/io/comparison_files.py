@@ -40,6 +40,7 @@ FIELDS = (
     "seconds",
     "converged",
     "status",
+    "limits_met",
 )
 
 

@@ -74,6 +74,7 @@ def summary(result: Result) -> dict:
         "material_fraction": result.material_fraction,
         "target_material_fraction": problem.goal.material,
         "iterations": result.iterations,
+        "exported_iteration": result.iterations if result.exported_iteration is None else result.exported_iteration,
         "converged": bool(result.converged),
         "status": result.status,
         "seconds": result.seconds,

@@ -69,6 +69,10 @@ def _table(comparison) -> str:
         ("own_compliance", f"method's own compliance [{u.compliance}]", 6),
         ("status", "status", None),
     ]
+    limits = comparison.problem.fabrication
+    asked = [k for k in ("min_member", "min_hole") if getattr(limits, k, None)]
+    if asked:
+        cols.insert(-1, ("limits_met", "fabrication limits met (" + ", ".join(asked) + ")", None))
     head = "".join(f'<th scope="col">{escape(label)}</th>' for _, label, _ in cols)
     body = []
     for m in comparison.methods:
@@ -80,14 +84,21 @@ def _table(comparison) -> str:
                 cells.append(f'<th scope="row">{escape(str(v))}</th>')
             elif key == "status":
                 cells.append(f"<td>{escape(str(v))}</td>")
+            elif key == "limits_met":
+                measured = ", ".join(f"{k} {_fmt(x, 4)}" for k, x in row.get("limits", {}).items())
+                cells.append(f"<td>{'yes' if v else 'no'} ({escape(measured)})</td>")
             elif key == "bodyfitted_compliance" and row.get("bodyfitted_ok") is False:
                 cells.append(f"<td>{_fmt(v, digits)}&nbsp;*</td>")
             else:
                 cells.append(f"<td>{_fmt(v, digits or 5)}</td>")
         body.append(f'<tr class="method-row" data-method="{escape(m)}">{"".join(cells)}</tr>')
     note = ""
+    if asked:
+        note += ("\n<p class=\"muted\">Fabrication limits: only the level-set method shapes its design to "
+                 "them (a filter during the run); the density-based and evolutionary outlines are measured "
+                 "as they come, and the table says whether each meets them.</p>")
     if has_body and any(r.get("bodyfitted_ok") is False for r in comparison.rows.values()):
-        note = ("\n<p class=\"muted\">* A support or load of the problem lies partly off this "
+        note += ("\n<p class=\"muted\">* A support or load of the problem lies partly off this "
                 "outline (for example a clamped edge the design leaves bare); the body-fitted "
                 "figure is for the outline as it is actually held and loaded.</p>")
     return (

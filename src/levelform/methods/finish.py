@@ -12,7 +12,8 @@ __all__ = ["build_result"]
 
 def build_result(problem, model, system, name: str, *, outline, phi, cell_design, state,
                  material_fraction: float, history, converged: bool, status: str, settings: dict,
-                 t_start: float, crisp_compliance=None, fabrication=None) -> Result:
+                 t_start: float, crisp_compliance=None, fabrication=None,
+                 exported_iteration=None) -> Result:
     """The Result of a run.
 
     Parameters
@@ -29,6 +30,7 @@ def build_result(problem, model, system, name: str, *, outline, phi, cell_design
     t_start : time.perf_counter() at the start of the run
     crisp_compliance : the outline's compliance, for methods whose own design is not crisp
     fabrication : geometry.measure.fabrication_report of the outline, where the method has one
+    exported_iteration : the iteration whose design this is, when not the last
     """
     g = model.grid
     dens = np.full(g.ny * g.nx, np.nan)
@@ -52,4 +54,5 @@ def build_result(problem, model, system, name: str, *, outline, phi, cell_design
         case_compliance={k: float(v) for k, v in zip(model.case_names, state.case_compliance)},
         crisp_compliance=None if crisp_compliance is None else float(crisp_compliance),
         fabrication={} if fabrication is None else fabrication,
+        exported_iteration=len(history) if exported_iteration is None else int(exported_iteration),
     )

@@ -32,7 +32,8 @@ SHRINK, GROW, FLOOR = 0.6, 1.1, 0.1  # step control: on a compliance rise, other
 CONVERGE_TOL, CONVERGE_WINDOW = 1e-3, 5
 VOLUME_TOL = 0.005  # relative to the goal
 CHECKPOINT_EVERY = 5  # iterations between checkpoints
-DIVERGE_RISES = 15  # consecutive compliance rises at the goal volume that stop a run
+DIVERGE_RISES = 15  # consecutive compliance rises at the goal volume that stop a run ...
+DIVERGE_RISE = 0.05  # ... as "diverging" only when the compliance is this far above the best design
 LOST_PATH_LIMIT = 30  # consecutive iterations without a load path that stop a run
 MORPH_AFTER = 12  # fabrication filter from this many iterations after the volume reached the goal
 # (after the last hole seeding, which ends 10 iterations after it)
@@ -118,6 +119,9 @@ class _Loop:
     lost: float
     rises: int  # consecutive compliance rises at the goal volume
     cut: int = 0  # consecutive iterations without a load path
+    best_it: int = -1  # iteration of the best feasible design so far, -1 if none
+    best_c: float = math.inf  # its compliance
+    best_phi: np.ndarray = None  # its level set
 
     def to_arrays(self) -> dict:
         hist = np.array([[getattr(r, f.name) for f in fields(IterationRecord)] for r in self.history], float)
@@ -127,6 +131,8 @@ class _Loop:
             "prev_frac": self.prev_frac, "history": hist.reshape(-1, len(fields(IterationRecord))),
             "last_seed": np.int64(self.last_seed), "goal_reached_at": np.int64(self.goal_reached_at),
             "lost": np.float64(self.lost), "rises": np.int64(self.rises), "cut": np.int64(self.cut),
+            "best_it": np.int64(self.best_it), "best_c": np.float64(self.best_c),
+            "best_phi": np.zeros((0, 0)) if self.best_phi is None else self.best_phi,
         }
 
     @classmethod
@@ -141,6 +147,8 @@ class _Loop:
             prev_target=float(d["prev_target"]), prev_frac=np.array(d["prev_frac"], float), history=history,
             last_seed=int(d["last_seed"]), goal_reached_at=int(d["goal_reached_at"]), lost=float(d["lost"]),
             rises=int(d["rises"]), cut=int(d["cut"]),
+            best_it=int(d["best_it"]), best_c=float(d["best_c"]),
+            best_phi=None if int(d["best_it"]) < 0 else np.array(d["best_phi"], float),
         )
 
 
@@ -176,7 +184,8 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
                   prev_frac=np.zeros(0), history=[], last_seed=-10**9, goal_reached_at=-1, lost=0.0, rises=0)
     status = "iteration limit reached"
     converged = False
-    best = None  # (phi, frac, state) of the last analysed design with an intact load path
+    last = None  # (phi, frac, state) of the last analysed design
+    best = None  # (phi, frac, state) of the best feasible design, when analysed in this process
 
     try:
         while S.it <= st.iterations:
@@ -195,9 +204,12 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
             with phase(clock, "load path"):
                 intact = load_path_intact(model, S.phi)
             S.cut = 0 if intact else S.cut + 1
-            best = (S.phi.copy(), frac, state)
+            last = (S.phi.copy(), frac, state)
             c = state.compliance
             vol = float(frac.mean())
+            if c < S.best_c and intact and _feasible(S, it, vol, ctx, problem):
+                best = last
+                S.best_it, S.best_c, S.best_phi = it, float(c), best[0]
             at_goal = abs(S.prev_target - goal) < 1e-12 and abs(S.target - goal) < 1e-12
             previous = S.history[-1].compliance if S.history else None
             if previous is not None and at_goal:
@@ -225,7 +237,12 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
                 status = f"load path lost: no material has connected a load to a support for {S.cut} iterations"
                 break
             if S.rises >= DIVERGE_RISES:
-                status = f"diverging: compliance rose {S.rises} iterations in a row at the goal volume"
+                if S.best_it >= 0 and c <= (1.0 + DIVERGE_RISE) * S.best_c:
+                    # a slow creep, not a divergence: the run ends with its best design
+                    converged, status = True, "converged"
+                else:
+                    status = (f"diverging: compliance rose {S.rises} iterations in a row at the goal volume"
+                              + (f", to {c / S.best_c - 1.0:.1%} above the best design" if S.best_it >= 0 else ""))
                 break
             if it == st.iterations:
                 break
@@ -234,15 +251,23 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
             if clock is not None:
                 clock.tick()
     except KeyboardInterrupt:
-        if best is None:
+        if last is None:
             raise
         status = "interrupted"
 
-    if best is None:
+    if last is None:
         raise FloatingPointError(status)
-    if S.cut and not status.startswith("load path lost"):
-        converged, status = False, "load path lost: the final design connects no load to a support"
-    phi, frac, state = best
+    if status == "interrupted" or S.best_it < 0:
+        # the current design: what a resumed run continues from, or no feasible one was reached
+        phi, frac, state = last
+        exported = len(S.history)
+        if S.cut and not status.startswith("load path lost"):
+            converged, status = False, "load path lost: the final design connects no load to a support"
+    else:  # the best feasible design the run reached (at the goal volume, load path intact)
+        if best is None:  # found before a resume: analyse it again
+            best = _analyse(S.best_phi, ls, system, st)
+        phi, frac, state = best
+        exported = S.best_it
     # The loop's phi is a distance only within the reinitialization band; the result's is
     # one everywhere (the band, and so the outline, unchanged).
     phi_out = np.where(a, ls.extend_distance(phi, reinit_band(st, h)), np.nan)
@@ -253,8 +278,38 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
         outline=outline, phi=phi_out, cell_design=frac, state=state, material_fraction=frac.mean(),
         history=S.history, converged=converged, status=status,
         settings={"method": "levelset", "goal_material": goal, **st.as_dict()}, t_start=t_start,
-        fabrication=fabrication_report(outline, domain, fab),
+        fabrication=fabrication_report(outline, domain, fab), exported_iteration=exported,
     )
+
+
+def _feasible(S, it: int, vol: float, ctx, problem) -> bool:
+    """Whether the design analysed at iteration ``it`` may be exported: the volume target
+    is the goal and the volume within VOLUME_TOL of it, and where fabrication limits are
+    asked for, the fabrication filter has shaped it and its outline meets them."""
+    goal = ctx.goal
+    if abs(S.target - goal) >= 1e-12 or abs(vol - goal) > VOLUME_TOL * goal:
+        return False
+    if not ctx.morph:
+        return True
+    if S.goal_reached_at < 0 or it <= S.goal_reached_at + MORPH_AFTER:
+        return False
+    outline, domain = _outline(S.phi, ctx, problem)
+    limits = fabrication_report(outline, domain, ctx.fab).get("limits", {})
+    return all(lim.get("met", True) for lim in limits.values())
+
+
+def _outline(phi, ctx, problem):
+    """(outline, domain) of a loop level set, as the run exports it."""
+    ls, st = ctx.ls, ctx.settings
+    phi_out = np.where(ls.node_active, ls.extend_distance(phi, reinit_band(st, ls.h)), np.nan)
+    domain = domain_polygon(problem)
+    return outline_from_levelset(phi_out, ctx.model.grid, domain), domain
+
+
+def _analyse(phi, ls, system, st):
+    """(phi, fractions, state) of a level set, analysed as the loop does."""
+    frac, stiff = ls.fractions_and_stiffness(phi)
+    return phi, frac, system.analyse(st.ersatz + (1.0 - st.ersatz) * stiff)
 
 
 def _hole_radius(st, h: float) -> float:
