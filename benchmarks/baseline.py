@@ -10,7 +10,7 @@ history.csv, and a SHA-256 of each outline file (SVG, DXF, GeoJSON).
                                                                   # relative, outlines byte-identical
     python benchmarks/baseline.py check base.json --only two_bar  # a subset by file stem
 
-Takes about ten minutes on two cores. Not a test: a guard a refactoring session runs by hand.
+Takes about two minutes per problem on two cores (three runs and a comparison each). Not a test: a guard a refactoring session runs by hand.
 """
 from __future__ import annotations
 
