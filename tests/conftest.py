@@ -86,3 +86,27 @@ def plate_problem(outline, cell, supports=(), loads=(), *, holes=(), regions=(),
         supports=tuple(supports), loads=tuple(loads), cases=tuple(cases), regions=tuple(regions),
         goal=Goal(goal), method=Method(**(method or {})), name=name, source=source,
     )
+
+
+# A small plate problem file (40 x 20, a clamped edge, a tip load) for the command-line
+# and API tests.
+SMALL_PLATE_TOML = """
+name = "small test plate"
+[material]
+E = 1000.0
+nu = 0.3
+thickness = 1.0
+[domain]
+outline = [[0, 0], [40, 0], [40, 20], [0, 20]]
+cell = 2.0
+[[support]]
+segment = [[0, 0], [0, 20]]
+fix = "xy"
+[[load]]
+point = [40, 10]
+force = [0, -1]
+[goal]
+material = 0.5
+[method]
+iterations = 30
+"""

@@ -3,37 +3,17 @@ each is the documented route to the same figures the submodules give."""
 import dataclasses
 
 import pytest
+from conftest import SMALL_PLATE_TOML
 
 import levelform
 from levelform.bodyfitted.check import verify_outline
 from levelform.methods import method_names
 
-SMALL = """
-name = "api test plate"
-[material]
-E = 1000.0
-nu = 0.3
-thickness = 1.0
-[domain]
-outline = [[0, 0], [40, 0], [40, 20], [0, 20]]
-cell = 2.0
-[[support]]
-segment = [[0, 0], [0, 20]]
-fix = "xy"
-[[load]]
-point = [40, 10]
-force = [0, -1]
-[goal]
-material = 0.5
-[method]
-iterations = 20
-"""
-
 
 @pytest.fixture(scope="module")
 def run(tmp_path_factory):
     path = tmp_path_factory.mktemp("api") / "p.toml"
-    path.write_text(SMALL, encoding="utf-8")
+    path.write_text(SMALL_PLATE_TOML, encoding="utf-8")
     problem = levelform.load_problem(path)
     seen = []
     result = levelform.optimize(problem, progress=seen.append)

@@ -8,32 +8,14 @@ import sys
 from pathlib import Path
 
 import pytest
+from conftest import SMALL_PLATE_TOML
 
 from levelform.cli import main
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
 OUTPUTS = {"outline.svg", "outline.dxf", "outline.geojson", "design.png", "history.png", "history.csv", "summary.json"}
 
-SMALL = """
-name = "small test plate"
-[material]
-E = 1000.0
-nu = 0.3
-thickness = 1.0
-[domain]
-outline = [[0, 0], [40, 0], [40, 20], [0, 20]]
-cell = 2.0
-[[support]]
-segment = [[0, 0], [0, 20]]
-fix = "xy"
-[[load]]
-point = [40, 10]
-force = [0, -1]
-[goal]
-material = 0.5
-[method]
-iterations = 30
-"""
+SMALL = SMALL_PLATE_TOML
 
 
 def _write(tmp_path, text, name="p.toml"):
