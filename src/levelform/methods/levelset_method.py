@@ -10,6 +10,7 @@ See docs/method.md for the reasoning behind each choice.
 """
 from __future__ import annotations
 
+import dataclasses
 import math
 import time
 from dataclasses import dataclass, fields
@@ -35,8 +36,10 @@ CHECKPOINT_EVERY = 5  # iterations between checkpoints
 DIVERGE_RISES = 15  # consecutive compliance rises at the goal volume that stop a run ...
 DIVERGE_RISE = 0.05  # ... as "diverging" only when the compliance is this far above the best design
 LOST_PATH_LIMIT = 30  # consecutive iterations without a load path that stop a run
-MORPH_AFTER = 12  # fabrication filter from this many iterations after the volume reached the goal
-# (after the last hole seeding, which ends 10 iterations after it)
+# The fabrication filter runs after every update, its radii growing with the volume path
+# (full once the target is the goal); a design counts as shaped by it this many iterations
+# after the target reached the goal.
+FILTER_SETTLE = 1
 SEED_EVERY, SEED_AREA = 5, 0.02  # hole seeding period (iterations), area opened per event
 
 
@@ -172,6 +175,8 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
     fab = problem.fabrication
     morph = bool(fab.min_member or fab.min_hole)
     hole_radius = _hole_radius(st, h)
+    if fab.min_hole:  # a seeded hole survives the closing by min_hole / 2 (full reinitialization then)
+        hole_radius = max(hole_radius, 0.6 * fab.min_hole)
     ctx = _Context(model=model, ls=ls, system=system, settings=st, goal=goal, morph=morph, fab=fab,
                    hole_radius=hole_radius, X=X, Y=Y, clock=clock)
 
@@ -228,7 +233,7 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
                 and abs(S.target - goal) < 1e-12
                 and abs(vol - goal) <= VOLUME_TOL * goal
                 and it - S.last_seed > CONVERGE_WINDOW
-                and (not morph or (S.goal_reached_at >= 0 and it > S.goal_reached_at + MORPH_AFTER + CONVERGE_WINDOW))
+                and (not morph or (S.goal_reached_at >= 0 and it > S.goal_reached_at + FILTER_SETTLE + CONVERGE_WINDOW))
                 and max(abs(c - x) for x in recent) < CONVERGE_TOL * c
             ):
                 converged, status = True, "converged"
@@ -282,6 +287,14 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
     )
 
 
+def _growing_limits(fab, start: float, target: float, goal: float):
+    """The fabrication limits scaled by the share of the volume path done: from 0 at the
+    start fraction to the full limits once the target is the goal."""
+    share = 1.0 if start <= goal else min(1.0, max(0.0, (start - target) / (start - goal)))
+    return dataclasses.replace(fab, min_member=fab.min_member and share * fab.min_member,
+                               min_hole=fab.min_hole and share * fab.min_hole)
+
+
 def _feasible(S, it: int, vol: float, ctx, problem) -> bool:
     """Whether the design analysed at iteration ``it`` may be exported: the volume target
     is the goal and the volume within VOLUME_TOL of it, and where fabrication limits are
@@ -291,7 +304,7 @@ def _feasible(S, it: int, vol: float, ctx, problem) -> bool:
         return False
     if not ctx.morph:
         return True
-    if S.goal_reached_at < 0 or it <= S.goal_reached_at + MORPH_AFTER:
+    if S.goal_reached_at < 0 or it <= S.goal_reached_at + FILTER_SETTLE:
         return False
     outline, domain = _outline(S.phi, ctx, problem)
     limits = fabrication_report(outline, domain, ctx.fab).get("limits", {})
@@ -378,7 +391,9 @@ def _update(S, ctx: _Context, state, frac, scale, it):
     with phase(clock, "update"):
         speed = normal_velocity(ws, lam, vscale)
         phi = ls.clamp(ls.advect(phi, speed, S.step), model.solid_sdf, model.empty_sdf)
-    filtering = morph and S.goal_reached_at >= 0 and it >= S.goal_reached_at + MORPH_AFTER
+    filtering = morph
+    if filtering:  # the limits grow with the volume path, so they never arrive as a shock
+        fab = _growing_limits(fab, S.history[0].target_fraction, S.target, goal)
     with phase(clock, "reinitialization"):
         # the fabrication filter offsets phi by up to half the limits: it needs all of it
         phi = ls.reinitialize(phi, band=None if filtering else reinit_band(st, h))
