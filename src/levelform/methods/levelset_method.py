@@ -171,14 +171,13 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
     ls = LevelSetGrid(model.node_active, model.cell_nodes, h, st.smoothing)
     X, Y = model.node_xy()
     goal = problem.goal.material
-    a = model.node_active
     fab = problem.fabrication
     morph = bool(fab.min_member or fab.min_hole)
     hole_radius = _hole_radius(st, h)
     if fab.min_hole:  # a seeded hole survives the closing by min_hole / 2 (full reinitialization then)
         hole_radius = max(hole_radius, 0.6 * fab.min_hole)
     ctx = _Context(model=model, ls=ls, system=system, settings=st, goal=goal, morph=morph, fab=fab,
-                   hole_radius=hole_radius, X=X, Y=Y, clock=clock)
+                   hole_radius=hole_radius, X=X, Y=Y, domain=domain_polygon(problem), clock=clock)
 
     saved = checkpoint.load() if checkpoint is not None else None
     if saved is not None:
@@ -199,8 +198,7 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
                 with phase(clock, "checkpoint"):
                     checkpoint.save(S.to_arrays())
             with phase(clock, "fractions"):
-                frac, stiff = ls.fractions_and_stiffness(S.phi)
-                scale = st.ersatz + (1.0 - st.ersatz) * stiff
+                frac, scale = _design_scale(S.phi, ls, st)
             try:
                 state = system.analyse(scale)
             except FloatingPointError as exc:
@@ -212,7 +210,7 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
             last = (S.phi.copy(), frac, state)
             c = state.compliance
             vol = float(frac.mean())
-            if c < S.best_c and intact and _feasible(S, it, vol, ctx, problem):
+            if c < S.best_c and intact and _feasible(S, it, vol, ctx):
                 best = last
                 S.best_it, S.best_c, S.best_phi = it, float(c), best[0]
             at_goal = abs(S.prev_target - goal) < 1e-12 and abs(S.target - goal) < 1e-12
@@ -273,11 +271,8 @@ def run(problem: Problem, progress=None, checkpoint=None, clock=None) -> Result:
             best = _analyse(S.best_phi, ls, system, st)
         phi, frac, state = best
         exported = S.best_it
-    # The loop's phi is a distance only within the reinitialization band; the result's is
-    # one everywhere (the band, and so the outline, unchanged).
-    phi_out = np.where(a, ls.extend_distance(phi, reinit_band(st, h)), np.nan)
-    domain = domain_polygon(problem)
-    outline = outline_from_levelset(phi_out, g, domain)
+    phi_out, outline = _outline(phi, ctx)
+    domain = ctx.domain
     return build_result(
         problem, model, system, "levelset",
         outline=outline, phi=phi_out, cell_design=frac, state=state, material_fraction=frac.mean(),
@@ -295,7 +290,7 @@ def _growing_limits(fab, start: float, target: float, goal: float):
                                min_hole=fab.min_hole and share * fab.min_hole)
 
 
-def _feasible(S, it: int, vol: float, ctx, problem) -> bool:
+def _feasible(S, it: int, vol: float, ctx) -> bool:
     """Whether the design analysed at iteration ``it`` may be exported: the volume target
     is the goal and the volume within VOLUME_TOL of it, and where fabrication limits are
     asked for, the fabrication filter has shaped it and its outline meets them."""
@@ -306,23 +301,30 @@ def _feasible(S, it: int, vol: float, ctx, problem) -> bool:
         return True
     if S.goal_reached_at < 0 or it <= S.goal_reached_at + FILTER_SETTLE:
         return False
-    outline, domain = _outline(S.phi, ctx, problem)
-    limits = fabrication_report(outline, domain, ctx.fab).get("limits", {})
+    limits = fabrication_report(_outline(S.phi, ctx)[1], ctx.domain, ctx.fab).get("limits", {})
     return all(lim.get("met", True) for lim in limits.values())
 
 
-def _outline(phi, ctx, problem):
-    """(outline, domain) of a loop level set, as the run exports it."""
-    ls, st = ctx.ls, ctx.settings
-    phi_out = np.where(ls.node_active, ls.extend_distance(phi, reinit_band(st, ls.h)), np.nan)
-    domain = domain_polygon(problem)
-    return outline_from_levelset(phi_out, ctx.model.grid, domain), domain
+def _outline(phi, ctx):
+    """(phi_out, outline) of a loop level set, as the run exports them. The loop's phi is
+    a distance only within the reinitialization band; phi_out is one everywhere (the band,
+    and so the outline, unchanged), NaN off the domain."""
+    ls = ctx.ls
+    phi_out = np.where(ls.node_active, ls.extend_distance(phi, reinit_band(ctx.settings, ls.h)), np.nan)
+    return phi_out, outline_from_levelset(phi_out, ctx.model.grid, ctx.domain)
+
+
+def _design_scale(phi, ls, st):
+    """(area fractions, cell stiffness scale) of a level set: the ersatz material below
+    the stiffness fractions."""
+    frac, stiff = ls.fractions_and_stiffness(phi)
+    return frac, st.ersatz + (1.0 - st.ersatz) * stiff
 
 
 def _analyse(phi, ls, system, st):
     """(phi, fractions, state) of a level set, analysed as the loop does."""
-    frac, stiff = ls.fractions_and_stiffness(phi)
-    return phi, frac, system.analyse(st.ersatz + (1.0 - st.ersatz) * stiff)
+    frac, scale = _design_scale(phi, ls, st)
+    return phi, frac, system.analyse(scale)
 
 
 def _hole_radius(st, h: float) -> float:
@@ -360,6 +362,7 @@ class _Context:
     hole_radius: float
     X: np.ndarray  # node coordinates
     Y: np.ndarray
+    domain: object  # the domain polygon (shapely)
     clock: object = None  # timing.PhaseClock or None
 
 
