@@ -58,6 +58,14 @@ def _parser() -> argparse.ArgumentParser:
                    help=f"comma-separated method names (default: {','.join(method_names())})")
     k.add_argument("--overwrite", action="store_true", help="replace the results in an existing output folder")
     k.add_argument("-q", "--quiet", action="store_true", help="no per-iteration progress lines")
+
+    t = sub.add_parser("truss", help="the stiffest truss the domain, supports and loads allow (a ground-structure "
+                       "reference for the compliance of any design)")
+    t.add_argument("problem", help="problem file (TOML, see docs/problem-format.md)")
+    t.add_argument("-o", "--out", metavar="OUTDIR", help="output folder (default: <problem file name>-truss next to the file)")
+    t.add_argument("--spacing", type=float, metavar="LENGTH", help="distance between ground-structure nodes, in the "
+                   "problem's length unit (default: see docs/truss.md)")
+    t.add_argument("--overwrite", action="store_true", help="replace the results in an existing output folder")
     return p
 
 
@@ -278,9 +286,49 @@ def cmd_compare(args) -> int:
         print(f"{m:>12s}  {r['crisp_compliance']:16.6g}  {ratio:>6s}  {r['material_fraction']:8.4f}  "
               f"{r['holes']:5d}  {r['iterations']:5d}  {r['seconds']:6.1f}s  {r['status']}")
     ev = comparison.evaluation
+    if ev.get("truss_compliance"):
+        ratios = ", ".join(f"{m} {comparison.rows[m]['ratio_to_truss']:.3f}" for m in methods)
+        print(f"\n  truss reference {ev['truss_compliance']:.6g} {u.compliance} (the stiffest truss at this "
+              f"material volume, docs/truss.md); crisp over it: {ratios}")
+    elif ev.get("truss_note"):
+        print(f"\n  {ev['truss_note']}")
     print(f"\n  compliance in {u.compliance}; every outline analysed on cells of {ev['grid_cell']:g} {u.length}, "
           f"void stiffness ratio {ev['ersatz']:g}\n"
           f"  results in {out}{os.sep} ({', '.join(sorted(files))})\n\nCaution: {CAUTION}", flush=True)
+    return EXIT_OK
+
+
+def cmd_truss(args) -> int:
+    from .io.truss_files import write_truss
+    from .problem.reader import load_problem
+    from .truss import truss_reference
+
+    if args.spacing is not None and not (0 < args.spacing < float("inf")):
+        return _errors([f"--spacing: must be a positive length, got {args.spacing}"])
+    problem = load_problem(args.problem)
+    out = Path(args.out) if args.out else Path(args.problem).with_name(f"{Path(args.problem).stem}-truss")
+    if out.exists() and not out.is_dir():
+        return _errors([f"-o: {out} exists and is not a folder"])
+    if out.is_dir() and any(out.iterdir()) and not args.overwrite:
+        return _errors([f"-o: output folder {out} is not empty; pass --overwrite to replace its results or choose another folder"])
+    print(f"levelform {__version__}: {problem.name}, truss ground-structure reference", flush=True)
+    r = truss_reference(problem, spacing=args.spacing)
+    files = write_truss(r, out)
+    u = problem.units
+    bars = max(c.bars_in_lp for c in r.cases)
+    lines = [f"  ground structure   {r.nodes} nodes {r.spacing:.4g} {u.length} apart"
+             + (" (default)" if r.spacing_default else "")
+             + f", {r.node_pairs} candidate bars possible, {bars} in the final program",
+             f"  material volume    {r.volume:.6g} {u.length}^3 (goal {problem.goal.material:g} of the domain)"]
+    for c in r.cases:
+        label = "compliance" if len(r.cases) == 1 else f"compliance, case {c.name}:"
+        lines.append(f"  {label:<18s} {c.compliance:.6g} {u.compliance} (W {c.W:.6g} {u.force}*{u.length}, "
+                     f"{len(c.force)} bars, {c.rounds} rounds, {c.status})")
+    for note in r.notes:
+        lines.append(f"  note               {note}")
+    lines.append(f"  time               {r.seconds:.1f} s")
+    lines.append(f"  results in         {out}{os.sep} ({', '.join(sorted(files))})")
+    print("\n".join(lines) + f"\n\nCaution: {CAUTION}", flush=True)
     return EXIT_OK
 
 
@@ -331,7 +379,7 @@ def main(argv=None) -> int:
         parser.print_help()
         return EXIT_BAD_INPUT
     handler = {"run": cmd_run, "check": cmd_check, "demo": cmd_demo, "compare": cmd_compare,
-               "verify": cmd_verify}[args.command]
+               "verify": cmd_verify, "truss": cmd_truss}[args.command]
     try:
         return handler(args)
     except ProblemError as exc:

@@ -54,6 +54,7 @@ class Comparison:
     rows: dict
     results: dict
     evaluation: dict
+    truss: object = None  # the levelform.truss.TrussResult of the reference, None if not computed
 
 
 # --------------------------------------------------------------------------- evaluation
@@ -147,6 +148,35 @@ def _bodyfitted(problem, outline, grid_compliance):
     return (None if comp is None else float(comp)), (None if ok is None else bool(ok))
 
 
+# --------------------------------------------------------------------------- truss reference
+
+def truss_evaluation(problem: Problem, spacing=None):
+    """The truss ground-structure reference for a comparison: (TrussResult or None, record).
+
+    The record holds ``truss_compliance`` (the weighted sum of the cases' references; the
+    case's own for one case), ``truss_case_compliance``, ``truss_spacing``, ``truss_nodes``,
+    ``truss_seconds`` and ``truss_note``: None when the reference was computed, else why not
+    (too large, no truss can carry the loads, ...). It never raises for a problem it cannot
+    serve: the comparison goes on without it."""
+    from .truss import truss_reference
+
+    record = {"truss_compliance": None, "truss_case_compliance": None, "truss_spacing": None,
+              "truss_nodes": None, "truss_seconds": None, "truss_note": None}
+    try:
+        ref = truss_reference(problem, spacing=spacing)
+    except ProblemError as exc:
+        record["truss_note"] = "truss reference not computed: " + "; ".join(exc.problems)
+        return None, record
+    record.update(truss_compliance=ref.compliance, truss_case_compliance=ref.case_compliance,
+                  truss_spacing=ref.spacing, truss_nodes=ref.nodes, truss_seconds=ref.seconds)
+    unfinished = [c for c in ref.cases if c.status != "optimal"]
+    notes = list(ref.notes) + [f"load case {c.name!r}: {c.status}; W is within "
+                               f"{100 * (c.W / c.W_lower - 1):.2g} % of the ground structure's optimum"
+                               for c in unfinished]
+    record["truss_note"] = "; ".join(notes) if notes else None
+    return ref, record
+
+
 # --------------------------------------------------------------------------- comparison
 
 def check_methods(methods, key: str = "methods") -> tuple:
@@ -167,14 +197,17 @@ def check_methods(methods, key: str = "methods") -> tuple:
 
 
 def compare_methods(problem: Problem, methods=DEFAULT_METHODS, progress=None,
-                    refine: int = REFINE) -> Comparison:
+                    refine: int = REFINE, truss: bool = True) -> Comparison:
     """Run each method in ``methods`` (names in ``levelform.methods.METHODS``, or one
     comma-separated string) on ``problem`` and evaluate every crisp outline by
     :func:`evaluate_crisp`.
 
     ``progress``, if given, is called as ``progress(method_name, iteration_record)``.
     ``ratio_to_levelset`` is each crisp compliance over the level-set one (None when
-    "levelset" is not among the methods). Raises ProblemError for an unknown method name.
+    "levelset" is not among the methods). ``ratio_to_truss`` is each crisp compliance over
+    the truss ground-structure reference (:func:`truss_evaluation`; None when ``truss`` is
+    False or the reference could not be computed, and the evaluation's ``truss_note`` says
+    why). Raises ProblemError for an unknown method name.
     """
     from .methods import optimize
 
@@ -194,6 +227,8 @@ def compare_methods(problem: Problem, methods=DEFAULT_METHODS, progress=None,
             "method": name,
             "crisp_compliance": ev["compliance"],
             "ratio_to_levelset": None,
+            "truss_compliance": None,
+            "ratio_to_truss": None,
             "bodyfitted_compliance": body,
             "bodyfitted_ok": body_ok,
             "own_compliance": float(result.compliance),
@@ -221,5 +256,11 @@ def compare_methods(problem: Problem, methods=DEFAULT_METHODS, progress=None,
         ref = rows["levelset"]["crisp_compliance"]
         for row in rows.values():
             row["ratio_to_levelset"] = row["crisp_compliance"] / ref if ref > 0 else None
+    ref, record = truss_evaluation(problem) if truss else (None, {"truss_note": "truss reference not asked for"})
+    evaluation = {**evaluation, **record}
+    tc = record.get("truss_compliance")
+    for row in rows.values():
+        row["truss_compliance"] = tc
+        row["ratio_to_truss"] = row["crisp_compliance"] / tc if tc else None
     return Comparison(problem=problem, methods=names, rows=rows, results=results,
-                      evaluation=evaluation)
+                      evaluation=evaluation, truss=ref)

@@ -14,7 +14,7 @@ from ..spec import CAUTION, Problem, ProblemError
 if TYPE_CHECKING:
     from ..comparison import Comparison
 
-__all__ = ["FIELDS", "comparison_csv", "comparison_record", "problem_record", "write_comparison"]
+__all__ = ["FIELDS", "case_ratio", "comparison_csv", "comparison_record", "problem_record", "write_comparison"]
 
 
 # --------------------------------------------------------------------------- records
@@ -25,6 +25,8 @@ FIELDS = (
     "method",
     "crisp_compliance",
     "ratio_to_levelset",
+    "truss_compliance",
+    "ratio_to_truss",
     "bodyfitted_compliance",
     "bodyfitted_ok",
     "own_compliance",
@@ -73,6 +75,12 @@ def comparison_record(comparison: Comparison) -> dict:
     }
 
 
+def case_ratio(row: dict, reference: dict, case: str):
+    """One load case's crisp compliance over that case's truss reference, or None."""
+    c, r = row["case_compliance"].get(case), (reference or {}).get(case)
+    return c / r if c is not None and r else None
+
+
 def _cell(v) -> str:
     if v is None:
         return ""
@@ -83,16 +91,21 @@ def _cell(v) -> str:
 
 def comparison_csv(comparison: Comparison) -> str:
     """One row per method, header first: the FIELDS, then, with several load cases, one
-    ``crisp_compliance[CASE]`` column per case."""
+    ``crisp_compliance[CASE]`` column per case and, when the truss reference was computed,
+    one ``ratio_to_truss[CASE]`` column per case (the case's crisp compliance over the
+    case's own reference)."""
     cases = [c.name for c in comparison.problem.cases]
     extra = [f"crisp_compliance[{c}]" for c in cases] if len(cases) > 1 else []
+    ref = (comparison.evaluation or {}).get("truss_case_compliance") or {}
+    ratio_cols = [f"ratio_to_truss[{c}]" for c in cases] if len(cases) > 1 and ref else []
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow(list(FIELDS) + extra)
+    w.writerow(list(FIELDS) + extra + ratio_cols)
     for m in comparison.methods:
         row = comparison.rows[m]
         w.writerow([_cell(row[f]) for f in FIELDS]
-                   + [_cell(row["case_compliance"].get(c)) for c in cases if extra])
+                   + [_cell(row["case_compliance"].get(c)) for c in cases if extra]
+                   + [_cell(case_ratio(row, ref, c)) for c in cases if ratio_cols])
     return buf.getvalue()
 
 

@@ -57,6 +57,8 @@ def _table(comparison) -> str:
         ("crisp_compliance", f"crisp compliance [{u.compliance}]", 6),
         ("ratio_to_levelset", "ratio to level set", 4),
     ]
+    if any(r.get("ratio_to_truss") is not None for r in comparison.rows.values()):
+        cols.append(("ratio_to_truss", "ratio to truss reference", 4))
     if has_body:
         cols.append(("bodyfitted_compliance", f"body-fitted compliance [{u.compliance}]", 6))
     cols += [
@@ -115,6 +117,41 @@ def _bodyfitted_paragraph(comparison) -> str:
     return ("\n<p>The body-fitted compliance is a second, independent check of the same "
             "outlines: each is meshed with triangles that follow its edges and solved again "
             "(quadratic elements), with no grid and no ersatz material.</p>")
+
+
+def _truss_section(comparison) -> str:
+    """What the truss reference is, its figure per load case, or why it is missing."""
+    ev = comparison.evaluation or {}
+    u = comparison.problem.units
+    ref = getattr(comparison, "truss", None)
+    note = ev.get("truss_note")
+    if ev.get("truss_compliance") is None or ref is None:
+        why = escape(str(note)) if note else "it was not computed"
+        return f'\n<h2>Truss reference</h2>\n<p id="truss-reference">No truss reference: {why}.</p>'
+    from .truss_files import truss_png
+
+    cases = ref.cases
+    if len(cases) == 1:
+        words = (f"the stiffest truss that fits in the domain and carries the loads to the supports, with "
+                 f"the same material volume as the goal ({_fmt(ref.volume, 5)} {escape(u.length)}^3), has "
+                 f"compliance {_fmt(cases[0].compliance, 6)} {escape(u.compliance)}")
+    else:
+        each = ", ".join(f"{_fmt(c.compliance, 6)} {escape(u.compliance)} for load case {escape(c.name)}"
+                         for c in cases)
+        words = (f"each load case has its own reference, the stiffest truss of the goal's material volume "
+                 f"({_fmt(ref.volume, 5)} {escape(u.length)}^3) for that case alone: {each}. No one truss is "
+                 f"the stiffest for every case at once, so the table's ratio divides the weighted crisp "
+                 f"compliance by the weighted sum of these references "
+                 f"({_fmt(ref.compliance, 6)} {escape(u.compliance)})")
+    extra = f" {escape(str(note))}." if note else ""
+    return (f'\n<h2>Truss reference</h2>\n<p id="truss-reference">A ground structure of {ref.nodes} nodes '
+            f"{_fmt(ref.spacing, 4)} {escape(u.length)} apart ({ref.node_pairs} candidate bars) was solved as "
+            f"a plastic layout linear program: {words}. A ratio near 1 means the outline is nearly as stiff "
+            "as the best layout the loads and supports allow; a continuum design is not bounded below by "
+            f"this figure in every case, so read it as a reference, not a proof.{extra}</p>\n"
+            f"<figure>{_img(truss_png(ref), 'the truss reference layout', 'truss')}"
+            "<figcaption>The truss reference: bars in tension red, in compression blue, line width in "
+            "proportion to the bar's area.</figcaption></figure>")
 
 
 def report_html(comparison, overview_png: bytes | None = None) -> str:
@@ -180,7 +217,7 @@ all load cases (solver: {escape(str(ev.get("solver", "direct")))}, held to a rel
 where iterative). The crisp compliance in the table is the weighted sum of the load
 cases' compliances from that analysis; a lower value is a stiffer design. Compare
 compliances only together with the material fractions: a design with more material is
-stiffer for that reason alone.</p>{_bodyfitted_paragraph(comparison)}
+stiffer for that reason alone.</p>{_bodyfitted_paragraph(comparison)}{_truss_section(comparison)}
 <h2>Each method</h2>
 {"".join(sections)}
 </main>
