@@ -258,17 +258,26 @@ def cmd_verify(args) -> int:
     return EXIT_OK if ok else EXIT_FAIL
 
 
+def _output_folder(args, suffix: str):
+    """The output folder of ``compare`` or ``truss`` (``-o``, else <problem>-<suffix> next to
+    the problem file), or the list of problems with it (not a folder, not empty)."""
+    out = Path(args.out) if args.out else Path(args.problem).with_name(f"{Path(args.problem).stem}-{suffix}")
+    if out.exists() and not out.is_dir():
+        return [f"-o: {out} exists and is not a folder"]
+    if out.is_dir() and any(out.iterdir()) and not args.overwrite:
+        return [f"-o: output folder {out} is not empty; pass --overwrite to replace its results or choose another folder"]
+    return out
+
+
 def cmd_compare(args) -> int:
     from .comparison import check_methods, compare_methods, write_comparison
     from .problem.reader import load_problem
 
     methods = check_methods(args.methods, key="--methods")
     problem = load_problem(args.problem)
-    out = Path(args.out) if args.out else Path(args.problem).with_name(f"{Path(args.problem).stem}-compare")
-    if out.exists() and not out.is_dir():
-        return _errors([f"-o: {out} exists and is not a folder"])
-    if out.is_dir() and any(out.iterdir()) and not args.overwrite:
-        return _errors([f"-o: output folder {out} is not empty; pass --overwrite to replace its results or choose another folder"])
+    out = _output_folder(args, "compare")
+    if isinstance(out, list):
+        return _errors(out)
 
     def progress(method, rec):
         print(f"{method:>12s} ", end="")
@@ -306,11 +315,9 @@ def cmd_truss(args) -> int:
     if args.spacing is not None and not (0 < args.spacing < float("inf")):
         return _errors([f"--spacing: must be a positive length, got {args.spacing}"])
     problem = load_problem(args.problem)
-    out = Path(args.out) if args.out else Path(args.problem).with_name(f"{Path(args.problem).stem}-truss")
-    if out.exists() and not out.is_dir():
-        return _errors([f"-o: {out} exists and is not a folder"])
-    if out.is_dir() and any(out.iterdir()) and not args.overwrite:
-        return _errors([f"-o: output folder {out} is not empty; pass --overwrite to replace its results or choose another folder"])
+    out = _output_folder(args, "truss")
+    if isinstance(out, list):
+        return _errors(out)
     print(f"levelform {__version__}: {problem.name}, truss ground-structure reference", flush=True)
     r = truss_reference(problem, spacing=args.spacing)
     files = write_truss(r, out)
