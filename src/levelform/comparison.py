@@ -16,7 +16,7 @@ import numpy as np
 import shapely
 
 from .fem.analysis import PlateSystem
-from .fem.model import build_model
+from .fem.model import build_model, resolve_settings
 from .geometry.measure import fabrication_report, outline_metrics
 from .geometry.shapes import domain_polygon
 from .io.comparison_files import (  # noqa: F401  (the writers, importable from here too)
@@ -105,10 +105,12 @@ def evaluate_crisp(problem: Problem, outline, refine: int = REFINE, ersatz: floa
         raise ProblemError([f"refine: must be a whole number >= 1, got {refine!r}"])
     refine = int(refine)
     cell = problem.domain.cell / refine
+    # The pads belong to the problem as the methods ran it: keep their radius, which the
+    # default ties to the problem's own cell on coarse grids, rather than resolve it anew.
     fine = dataclasses.replace(
         problem,
         domain=dataclasses.replace(problem.domain, cell=cell),
-        method=dataclasses.replace(problem.method, solver="auto"),
+        method=dataclasses.replace(problem.method, solver="auto", pad_radius=resolve_settings(problem).pad_radius),
     )
     model = build_model(fine)
     frac = area_fractions(model.grid, model.cells, outline)
