@@ -58,6 +58,7 @@ MD_COLUMNS = (
     ("method", "method", None),
     ("crisp_compliance", "crisp compliance", 5),
     ("ratio_to_levelset", "ratio to level set", 3),
+    ("ratio_to_truss", "ratio to truss", 3),
     ("bodyfitted_compliance", "body-fitted compliance", 5),
     ("material_fraction", "material fraction", 3),
     ("outline_length", "outline length", 4),

@@ -28,6 +28,7 @@ from shapely.geometry import MultiPolygon, Point, Polygon, box
 
 import levelform
 from levelform.bodyfitted.check import verify_outline
+from levelform.comparison import evaluate_crisp
 from levelform.fem.analysis import PlateSystem
 from levelform.physics import PlaneStress
 from levelform.fem.model import build_model
@@ -399,3 +400,14 @@ def test_stress_figure_names_the_envelope_and_marks_support_pads():
     w = verify_outline(one, box(0, 0, 60, 30), mesh_size=2.0)
     fig1 = stress_figure(w, one)
     assert "envelope" not in fig1.axes[0].get_title() and not fig1.legends
+
+
+def test_levelset_crisp_figure_is_the_exported_outline_on_its_grid(exported):
+    # The level set reports the exported outline re-analysed on its own grid with void
+    # stiffness 1e-6 (what the body-fitted check is compared with): the same figure as
+    # compare's common analysis at refine = 1, which intersects the outline polygon with
+    # every cell (shapely) instead of using the level set's marching-squares areas.
+    result, _ = exported
+    ev = evaluate_crisp(result.problem, result.outline, refine=1)
+    assert result.crisp_compliance == pytest.approx(ev["compliance"], rel=2e-3)
+    assert result.crisp_compliance != pytest.approx(result.compliance, rel=1e-9)
