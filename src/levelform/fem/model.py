@@ -176,7 +176,7 @@ def signed_distance(geom, X: np.ndarray, Y: np.ndarray) -> np.ndarray:
     return np.where(inside, -d, d)
 
 
-def _nodes_near(geom, xy: np.ndarray, tol: float) -> np.ndarray:
+def nodes_near(geom, xy: np.ndarray, tol: float) -> np.ndarray:
     """Indices into xy of the nodes within tol of geom; the nearest one if none is."""
     d = shapely.distance(geom, shapely.points(xy[:, 0], xy[:, 1]))
     idx = np.flatnonzero(d <= tol)
@@ -185,7 +185,7 @@ def _nodes_near(geom, xy: np.ndarray, tol: float) -> np.ndarray:
     return idx
 
 
-def _segment_weights(seg, xy: np.ndarray, idx: np.ndarray) -> np.ndarray:
+def segment_weights(seg, xy: np.ndarray, idx: np.ndarray) -> np.ndarray:
     """Tributary lengths along the segment of the chosen nodes (sum = segment length),
     which for a grid-aligned edge equal the consistent nodal loads of a uniform traction."""
     (ax, ay), (bx, by) = seg
@@ -310,11 +310,11 @@ def build_model(problem: Problem) -> Model:
         g = item_geometry(s)
         padded = uses_pad(s, settings)
         if s.kind == "point" and padded:
-            idx = _nodes_near(g, xy, settings.pad_radius + PAD_HOLD_REACH * h)
+            idx = nodes_near(g, xy, settings.pad_radius + PAD_HOLD_REACH * h)
         elif s.kind == "box":
-            idx = _nodes_near(g, xy, 1e-9 * h)
+            idx = nodes_near(g, xy, 1e-9 * h)
         else:
-            idx = _nodes_near(g, xy, tol)
+            idx = nodes_near(g, xy, tol)
         support_nodes.append(act_flat[idx])
         for k in physics.fixed_components(s.fix):
             fixed[dpn * idx + k] = True
@@ -335,13 +335,13 @@ def build_model(problem: Problem) -> Model:
                 if padded else None
             )
             if spread is None:  # an exact nodal force at the nearest node
-                idx, w = _nodes_near(g, xy, 0.0)[:1], np.ones(1)
+                idx, w = nodes_near(g, xy, 0.0)[:1], np.ones(1)
             else:
                 idx, w = spread
         else:
             g = LineString(ld.where)
-            idx = _nodes_near(g, xy, tol)
-            w = _segment_weights(ld.where, xy, idx)
+            idx = nodes_near(g, xy, tol)
+            w = segment_weights(ld.where, xy, idx)
         load_nodes.append(act_flat[idx])
         for k, value in enumerate(physics.nodal_load(ld)):
             np.add.at(F[:, c], dpn * idx + k, value * w)

@@ -10,7 +10,7 @@ import numpy as np
 from ..geometry.shapes import domain_polygon, keep_regions, polygon_parts
 from ..spec import CAUTION, ProblemError
 from .atomic import atomic_write_bytes, json_text
-from .dxf import _DXF_UNITS, _fixed_dxf_metadata, _sorted_dxf_classes
+from .dxf import dxf_bytes, dxf_document, dxf_polyline, dxf_supports_and_loads, fixed_dxf_metadata
 from .figures import (
     COLOR_DOMAIN,
     COLOR_DOMAIN_FILL,
@@ -23,7 +23,7 @@ from .figures import (
     polygon_path,
     support_glyphs,
 )
-from .scene import coordinate_rings, round_coordinate, unit_vector
+from .scene import coordinate_rings, round_coordinate
 
 __all__ = ["FILES", "truss_record", "truss_dxf", "truss_png", "truss_figure", "write_truss"]
 
@@ -106,61 +106,28 @@ def truss_dxf(result) -> bytes:
     TRUSS_BARS whose constant width is its area over the plate thickness (the width of a
     strip of the plate with that area), red in tension and blue in compression; the domain,
     keep-empty regions, supports and loads on their own layers."""
-    import ezdxf
-    from ezdxf import units as dxf_units
-
     p = result.problem
     domain = domain_polygon(p)
     _, empty = keep_regions(p)
     minx, miny, maxx, maxy = domain.bounds
     s = 0.03 * math.hypot(maxx - minx, maxy - miny)
-    with _fixed_dxf_metadata():
-        doc = ezdxf.new("R2010", setup=False)
-        code = _DXF_UNITS.get(str(p.units.length).lower())
-        doc.units = getattr(dxf_units, code) if code else 0
-        doc.header["$MEASUREMENT"] = 0 if code in ("IN", "FT") else 1
-        doc.header.custom_vars.append("LENGTH_UNIT", str(p.units.length))
-        doc.header.custom_vars.append("PROBLEM", str(p.name))
-        doc.header.custom_vars.append("CONTENT", "truss ground-structure reference; bar width = area / thickness")
-        doc.header.custom_vars.append("CAUTION", CAUTION)
-        for name, color in DXF_TRUSS_LAYERS.items():
-            doc.layers.add(name, color=color)
-        msp = doc.modelspace()
-
-        def poly(points, layer, closed, **attribs):
-            pts = [(round_coordinate(x), round_coordinate(y)) for x, y in np.asarray(points)[:, :2]]
-            if closed and len(pts) > 1 and pts[0] == pts[-1]:
-                pts = pts[:-1]
-            return msp.add_lwpolyline(pts, format="xy", close=closed, dxfattribs={"layer": layer, **attribs})
-
+    variables = [("PROBLEM", str(p.name)),
+                 ("CONTENT", "truss ground-structure reference; bar width = area / thickness"),
+                 ("CAUTION", CAUTION)]
+    with fixed_dxf_metadata():
+        doc, msp = dxf_document(str(p.units.length), variables, DXF_TRUSS_LAYERS)
         for r in coordinate_rings(domain):
-            poly(r, "DOMAIN", True)
+            dxf_polyline(msp, r, "DOMAIN", True)
         for part in polygon_parts(empty):
             for r in coordinate_rings(part):
-                poly(r, "KEEP_EMPTY", True)
+                dxf_polyline(msp, r, "KEEP_EMPTY", True)
         for case in result.cases:
             for a, b, q, w in zip(case.start, case.end, case.force, _widths(result, case)):
-                e = poly([a, b], "TRUSS_BARS", False, color=DXF_TENSION if q > 0 else DXF_COMPRESSION)
+                e = dxf_polyline(msp, [a, b], "TRUSS_BARS", False,
+                                 color=DXF_TENSION if q > 0 else DXF_COMPRESSION)
                 e.dxf.const_width = round_coordinate(w)
-        for sup in p.supports:
-            closed, opens, _ = support_glyphs(sup, s, domain)
-            for c in closed:
-                poly(c, "SUPPORTS", True)
-            for o in opens:
-                poly(o, "SUPPORTS", False)
-        for load in p.loads:
-            tails, heads = load_arrows(load, 3.5 * s)
-            if load.kind == "segment":
-                poly(np.asarray(load.where, dtype=float), "LOADS", False)
-            for tail, head in zip(tails, heads):
-                poly(np.array([tail, head]), "LOADS", False)
-                d = unit_vector(head - tail)
-                t = np.array([-d[1], d[0]])
-                poly(np.array([head, head - 0.6 * s * d + 0.25 * s * t, head - 0.6 * s * d - 0.25 * s * t]),
-                     "LOADS", True)
-        stream = io.StringIO()
-        doc.write(stream)
-        return doc.encode(_sorted_dxf_classes(stream.getvalue()))
+        dxf_supports_and_loads(msp, p, domain, s, labels=False)
+        return dxf_bytes(doc)
 
 
 def truss_figure(result):

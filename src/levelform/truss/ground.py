@@ -17,7 +17,7 @@ import numpy as np
 import shapely
 from shapely.geometry import LineString, Point
 
-from ..fem.model import _nodes_near, _segment_weights
+from ..fem.model import nodes_near, segment_weights
 from ..geometry.shapes import domain_polygon, item_geometry, region_geometry
 from ..physics import physics_of, restrained_rank
 from ..spec import Problem, ProblemError
@@ -178,7 +178,7 @@ def build_ground_structure(problem: Problem, spacing: float) -> GroundStructure:
         if item.kind != "box" and not inside.all():
             d = float(dom.distance(g)) if item.kind == "point" else float(g.difference(dom).length)
             slack = max(0.5 * problem.domain.cell, tol)
-            if (item.kind == "point" and d > slack) or (item.kind == "segment" and d > slack):
+            if d > slack:
                 what = "lies" if item.kind == "point" else "has a part of length"
                 raise ProblemError([f"{item.key}.{item.kind}: {what} {d:.4g} {problem.units.length} "
                                     "outside the domain, so no truss in the domain can reach it"])
@@ -213,7 +213,7 @@ def build_ground_structure(problem: Problem, spacing: float) -> GroundStructure:
     near = RING_MERGE * s * (1.0 + 1e-9)  # a segment's nodes: on it, or the lattice node that stood in
     for sup in problem.supports:
         g = item_geometry(sup)
-        idx = _nodes_near(g, xy, {"point": 0.0, "segment": near, "box": tol}[sup.kind])
+        idx = nodes_near(g, xy, {"point": 0.0, "segment": near, "box": tol}[sup.kind])
         if sup.kind == "point":
             idx = idx[:1]
         for k in physics.fixed_components(sup.fix):
@@ -225,10 +225,10 @@ def build_ground_structure(problem: Problem, spacing: float) -> GroundStructure:
     for ld in problem.loads:
         c = case_names.index(ld.case)
         if ld.kind == "point":
-            idx, w = _nodes_near(Point(ld.where), xy, 0.0)[:1], np.ones(1)
+            idx, w = nodes_near(Point(ld.where), xy, 0.0)[:1], np.ones(1)
         else:
-            idx = _nodes_near(LineString(ld.where), xy, near)
-            w = _segment_weights(ld.where, xy, idx)
+            idx = nodes_near(LineString(ld.where), xy, near)
+            w = segment_weights(ld.where, xy, idx)
         for k, value in enumerate(physics.nodal_load(ld)):
             np.add.at(F[:, c], dpn * idx + k, value * w)
 

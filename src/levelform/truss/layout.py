@@ -176,11 +176,18 @@ def solve_layout(gs: GroundStructure, f: np.ndarray, i: np.ndarray, j: np.ndarra
     return 0, W, q, u
 
 
+def _strain_of(d: np.ndarray, du: np.ndarray, spacing: float, length2=None) -> np.ndarray:
+    """|virtual strain| |d.du| / |d|^2 of bars with end-to-end vectors ``d`` and end
+    displacement differences ``du`` (any leading shape, last axis x, y), in the program's
+    scaled units (1 = at the limit); ``length2`` = |d|^2 if already known."""
+    if length2 is None:
+        length2 = np.einsum("...k,...k->...", d, d)
+    return np.abs(np.einsum("...k,...k->...", d, du)) * spacing / length2
+
+
 def _strain(gs: GroundStructure, u2: np.ndarray, i, j) -> np.ndarray:
-    """|virtual strain| of bars (i, j) in the program's scaled units (1 = at the limit)."""
-    d = gs.xy[j] - gs.xy[i]
-    du = u2[j] - u2[i]
-    return np.abs(np.einsum("ij,ij->i", d, du)) * gs.spacing / np.einsum("ij,ij->i", d, d)
+    """|virtual strain| of bars (i, j)."""
+    return _strain_of(gs.xy[j] - gs.xy[i], u2[j] - u2[i], gs.spacing)
 
 
 def _scan(gs: GroundStructure, u2: np.ndarray, excluded: np.ndarray, keep: int):
@@ -198,7 +205,7 @@ def _scan(gs: GroundStructure, u2: np.ndarray, excluded: np.ndarray, keep: int):
         du = u2[None, :, :] - u2[ii, None, :]
         L2 = np.einsum("rnk,rnk->rn", d, d)
         L2[L2 == 0.0] = np.inf
-        s = np.abs(np.einsum("rnk,rnk->rn", d, du)) * gs.spacing / L2
+        s = _strain_of(d, du, gs.spacing, L2)
         s[np.arange(n)[None, :] <= ii[:, None]] = 0.0  # each pair once: j > i
         a, b = np.nonzero(s > 1.0 + STRAIN_TOL)
         if a.size == 0:
