@@ -59,8 +59,10 @@ class Domain:
 
 @dataclass(frozen=True)
 class Support:
-    """``kind`` is "point", "segment" or "box"; ``where`` holds its coordinates:
-    a point (x, y), a segment ((x0, y0), (x1, y1)) or a box (x0, y0, x1, y1)."""
+    """``kind`` is "point", "segment", "box" or "circle"; ``where`` holds its coordinates:
+    a point (x, y), a segment ((x0, y0), (x1, y1)), a box (x0, y0, x1, y1) or a circle
+    (cx, cy, r). A box or circle holds the material inside it; a bolt's support is the
+    circle of its hole, so it holds the hole's rim."""
 
     kind: str
     where: tuple
@@ -132,10 +134,62 @@ class Method:
 
 @dataclass(frozen=True)
 class Fabrication:
-    """Manufacturing limits, lengths in model units; None means no limit."""
+    """Manufacturing limits, lengths in model units; None means no limit. ``process``
+    (laser, waterjet, punch) is the cutting process whose defaults filled the limits not
+    given; ``edge_distance`` is the least distance from a hole to the outline, kept as a
+    solid band inside it."""
 
     min_member: Optional[float] = None
     min_hole: Optional[float] = None
+    process: Optional[str] = None
+    edge_distance: Optional[float] = None
+
+
+@dataclass(frozen=True)
+class Pattern:
+    """Symmetry and repetition imposed on the design by construction (docs/patterns.md).
+
+    ``mirror`` is None, "left-right", "top-bottom" or "both", about the lines through
+    ``centre``; ``rotate`` None, 2 or 4 (fold, about ``centre``); ``repeat`` None or
+    (nx, ny) tiles over ``tiled`` = (x0, y0, x1, y1), the outline's bounding box less any
+    frame. With ``repeat``, mirror and rotation act on each tile about its own centre."""
+
+    mirror: Optional[str] = None
+    centre: Optional[Point] = None
+    rotate: Optional[int] = None
+    repeat: Optional[tuple[int, int]] = None
+    tiled: Optional[tuple[float, float, float, float]] = None
+
+    def describe(self) -> str:
+        parts = []
+        if self.repeat:
+            parts.append(f"repeat {self.repeat[0]} x {self.repeat[1]}")
+        if self.mirror:
+            parts.append(f"mirror {self.mirror}")
+        if self.rotate:
+            parts.append(f"rotate {self.rotate}-fold")
+        return ", ".join(parts) or "none"
+
+
+@dataclass(frozen=True)
+class Bolt:
+    """A bolt: a hole of ``diameter`` at ``at`` that stays open (a domain hole), a solid
+    ring of width ``ring`` around it (a keep-solid region) and a support ``fix`` on the
+    hole's rim."""
+
+    at: Point
+    diameter: float
+    ring: float
+    fix: str
+    key: str = "bolt"
+
+
+@dataclass(frozen=True)
+class Export:
+    """Export settings: ``arc_tolerance`` (a length) is how far the arcs fitted to the
+    outline in outline.dxf may stray from it; None: a twentieth of the cell."""
+
+    arc_tolerance: Optional[float] = None
 
 
 @dataclass(frozen=True)
@@ -153,6 +207,9 @@ class Problem:
     name: str = "problem"
     source: Optional[str] = None
     raw: dict = field(default_factory=dict, compare=False, repr=False)
+    pattern: Optional[Pattern] = None
+    bolts: tuple[Bolt, ...] = ()
+    export: Export = field(default_factory=Export)
 
 
 @dataclass(frozen=True)

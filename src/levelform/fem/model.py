@@ -237,6 +237,10 @@ def _pad_load_weights(centre, radius, domain, grid, active, cell_nodes, node_num
 # +5.4 % with no reach, +0.9 % with a quarter cell, -2.9 % with half a cell (docs/method.md).
 PAD_HOLD_REACH = 0.25
 
+# A circle support (a bolt's hole) holds the nodes within this many cells of the circle:
+# the grid's stair-step rim lies within half a cell diagonal of the true one.
+CIRCLE_HOLD_REACH = 0.25
+
 # A segment or box no longer than this many pad radii counts as concentrated: its stresses
 # are singular over a length the grid cannot spread, so it gets a pad by default.
 PAD_SHORT = 4.0
@@ -254,6 +258,8 @@ def needs_pad(item, pad_radius: float) -> bool:
     if item.kind == "segment":
         (ax, ay), (bx, by) = item.where
         length = math.hypot(bx - ax, by - ay)
+    elif item.kind == "circle":
+        length = 2.0 * item.where[2]
     else:
         x0, y0, x1, y1 = item.where
         length = max(abs(x1 - x0), abs(y1 - y0))
@@ -313,6 +319,8 @@ def build_model(problem: Problem) -> Model:
             idx = nodes_near(g, xy, settings.pad_radius + PAD_HOLD_REACH * h)
         elif s.kind == "box":
             idx = nodes_near(g, xy, 1e-9 * h)
+        elif s.kind == "circle":  # the material in the disc, or (a bolt) the rim of its hole
+            idx = nodes_near(g, xy, CIRCLE_HOLD_REACH * h)
         else:
             idx = nodes_near(g, xy, tol)
         support_nodes.append(act_flat[idx])

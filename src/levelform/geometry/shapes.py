@@ -77,6 +77,9 @@ def item_geometry(item: Support | Load):
         return Point(item.where)
     if item.kind == "segment":
         return LineString(item.where)
+    if item.kind == "circle":
+        cx, cy, r = item.where
+        return Point(cx, cy).buffer(r, quad_segs=CIRCLE_QUAD_SEGS)
     return box(*item.where)
 
 
@@ -117,6 +120,12 @@ def region_geometry(region: Region, oriented: bool = True) -> Polygon:
                 raise ProblemError(
                     f"{region.key}: box needs x0 < x1 and y0 < y1, got {tuple(w)}")
             geom = box(x0, y0, x1, y1)
+        elif region.kind == "border":  # a band of width w inside the outline (and round holes)
+            width, outline, holes = w
+            plate = Polygon(outline, list(holes))
+            geom = plate.difference(plate.buffer(-float(width), join_style="mitre"))
+            if geom.geom_type != "Polygon" or geom.is_empty:
+                geom = shapely.union_all([g for g in polygon_parts(geom)])
         elif region.kind == "polygon":
             geom = Polygon([(float(x), float(y)) for x, y in w])
             if not geom.is_valid or geom.area <= 0.0:

@@ -140,7 +140,7 @@ def check_placement(supports, loads, domain, cell, units, errs):
                                       f"the whole segment must be within "
                                       f"cell/2 = {number_text(tol)} {lu} of it")
         elif not geom.intersects(domain):
-            add_error(errs, path, f"the box {show(list(item.where))} does not touch the domain")
+            add_error(errs, path, f"the {item.kind} {show(list(item.where))} does not touch the domain")
         if isinstance(item, Support) and len(errs) > before:
             supports_ok = False
     return supports_ok
@@ -152,6 +152,9 @@ def _support_points(s, bounds):
         return [s.where]
     if s.kind == "segment":
         return list(s.where)
+    if s.kind == "circle":
+        cx, cy, r = s.where
+        return [(cx + r, cy), (cx, cy + r), (cx - r, cy), (cx, cy - r)]
     x0, y0, x1, y1 = s.where
     if bounds is not None:
         x0, y0 = max(x0, bounds[0]), max(y0, bounds[1])

@@ -14,7 +14,10 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
+from dataclasses import replace
+
 import numpy as np
+from shapely.geometry import Polygon
 
 from ..methods.registry import method_names
 from ..spec import (
@@ -38,6 +41,16 @@ from .checks import (
     check_placement,
     check_regions,
     check_rigid_body,
+)
+from .patterns import (
+    PROCESSES,
+    apply_bolts,
+    border_region,
+    check_pattern,
+    parse_bolts,
+    parse_export,
+    parse_pattern,
+    process_defaults,
 )
 from .messages import add_error, number_text, quoted_list, show, toml_error_message
 from .values import (
@@ -74,16 +87,17 @@ MAX_ITERATIONS = 100_000
 MAX_UNIT_CHARS = 16
 
 TOP_KEYS = ("name", "description", "units", "material", "domain", "support", "load",
-            "case", "region", "goal", "method", "fabrication")
+            "case", "region", "goal", "method", "fabrication", "pattern", "bolt", "export")
 _UNITS_KEYS = ("length", "force")
 _MATERIAL_KEYS = ("E", "nu", "thickness")
 _DOMAIN_KEYS = ("outline", "holes", "cell")
-_SUPPORT_KEYS = ("point", "segment", "box", "fix", "pad")
+_SUPPORT_KEYS = ("point", "segment", "box", "circle", "fix", "pad")
 _LOAD_KEYS = ("point", "segment", "force", "force_per_length", "case", "pad")
 _CASE_KEYS = ("name", "weight")
-_REGION_KEYS = ("keep", "circle", "box", "polygon")
-_GOAL_KEYS = ("material", "min_member", "min_hole")
+_REGION_KEYS = ("keep", "circle", "box", "polygon", "border")
+_GOAL_KEYS = ("material", "open_area", "min_member", "min_hole")
 _FABRICATION_KEYS = ("min_member", "min_hole")
+_FABRICATION_OTHER = ("process", "edge_distance")
 _METHOD_LENGTHS = ("smoothing", "pad_radius", "step", "hole_spacing", "filter_radius")
 _METHOD_KEYS = ("name", "iterations", "smoothing", "seed_holes", "initial_holes", "pads", "pad_radius",
                 "step", "hole_spacing", "volume_step", "ersatz", "solver", "penalty", "filter_radius",
@@ -181,8 +195,9 @@ def parse_problem(data: dict, name: str = "problem", source=None) -> Problem:
     material = _parse_material(data, units, errs)
     domain, domain_shape = _parse_domain(data, units, errs)
     supports = _parse_array(data, "support", _parse_support, units, errs,
-                            missing="no supports given; add at least one [[support]] "
-                                    "table with point, segment or box and fix")
+                            missing=None if data.get("bolt") else
+                            "no supports given; add at least one [[support]] table with "
+                            "point, segment, box or circle and fix, or a [[bolt]]")
     loads = _parse_array(data, "load", _parse_load, units, errs,
                          missing="no loads given; add at least one [[load]] table with "
                                  "point and force, or segment and force_per_length")
@@ -190,7 +205,28 @@ def parse_problem(data: dict, name: str = "problem", source=None) -> Problem:
     regions = _parse_array(data, "region", _parse_region, units, errs, missing=None)
     goal = _parse_goal(data, errs)
     method = _parse_method(data, units, errs)
-    fabrication = _parse_fabrication(data, units, errs)
+    fabrication = _parse_fabrication(data, units, errs, material)
+    pattern_raw = parse_pattern(data, errs)
+    bolts = parse_bolts(data, units, errs, FIXES)
+    export = parse_export(data, units, errs)
+
+    # Bolts become a domain hole, a keep-solid ring and a support on the hole's rim; a
+    # border and the edge distance become keep-solid bands inside the outline.
+    if domain is not None:
+        outline_shape = Polygon(domain.outline) if domain_shape is not None else None
+        rings, bolt_regions, bolt_supports = apply_bolts(bolts, outline_shape, domain_shape, units, errs)
+        regions = _Items(_resolve_borders(regions, domain))
+        if fabrication is not None and fabrication.edge_distance:
+            regions.append(border_region(fabrication.edge_distance, domain.outline, domain.holes,
+                                         "fabrication.edge_distance"))
+        if rings:
+            domain = replace(domain, holes=tuple(domain.holes) + tuple(rings))
+            domain_shape, _ = make_polygon(domain.outline, list(domain.holes))
+        regions.extend(bolt_regions)
+        supports.extend(bolt_supports)
+    else:
+        regions = _Items(r for r in regions if r.kind != "border")
+        regions.complete = False
 
     cases = check_cases(data, declared, loads, errs)
     placed = True
@@ -201,6 +237,10 @@ def parse_problem(data: dict, name: str = "problem", source=None) -> Problem:
     check_regions(regions, supports, loads, domain_shape, goal, units, errs)
     if placed and domain_shape is not None:
         check_load_paths(regions, supports, loads, domain_shape, errs)
+    pattern = None
+    if domain is not None and domain_shape is not None and pattern_raw is not None:
+        pattern = check_pattern(pattern_raw, domain_shape, regions, domain.cell,
+                                Polygon(domain.outline).bounds, units, errs)
     if domain is not None:
         check_grid(domain_shape, domain.cell, units, errs)
 
@@ -220,6 +260,9 @@ def parse_problem(data: dict, name: str = "problem", source=None) -> Problem:
         name=title,
         source=None if source is None else str(source),
         raw=data,
+        pattern=pattern,
+        bolts=tuple(bolts),
+        export=export,
     )
 
 
@@ -421,7 +464,7 @@ def _location(t, path, errs, kinds, what):
     """Exactly one of ``kinds`` (point, segment, box) -> ``(kind, where)`` or None."""
     given = [k for k in kinds if k in t]
     spelled = {"point": "point = [x, y]", "segment": "segment = [[x0, y0], [x1, y1]]",
-               "box": "box = [x0, y0, x1, y1]"}
+               "box": "box = [x0, y0, x1, y1]", "circle": "circle = [cx, cy, r]"}
     options = " or ".join(spelled[k] for k in kinds)
     if not given:
         add_error(errs, path, f"no location; give exactly one of {options} for the {what}")
@@ -435,6 +478,8 @@ def _location(t, path, errs, kinds, what):
             parsed[k] = read_vector(t[k], sub, errs)
         elif k == "segment":
             parsed[k] = read_segment(t[k], sub, errs)
+        elif k == "circle":
+            parsed[k] = read_circle(t[k], sub, errs, "length units")
         else:
             parsed[k] = read_box(t[k], sub, errs)
     if len(given) != 1 or parsed[given[0]] is None:
@@ -447,7 +492,7 @@ def _parse_support(t, path, units, errs):
                special={"force": "supports take no force; put forces in a [[load]] table",
                         "case": "supports hold in every load case; case belongs to "
                                 "[[load]] tables"})
-    loc = _location(t, path, errs, ("point", "segment", "box"), "support")
+    loc = _location(t, path, errs, ("point", "segment", "box", "circle"), "support")
     fix = None
     if "fix" in t:
         fix = read_choice(t["fix"], f"{path}.fix", errs, FIXES, "the fixed directions")
@@ -540,15 +585,24 @@ def _parse_region(t, path, units, errs):
         keep = read_choice(t["keep"], f"{path}.keep", errs, KEEPS, "what to keep")
     else:
         add_error(errs, f"{path}.keep", f"missing; expected what to keep: {quoted_list(KEEPS)}")
-    kinds = [k for k in ("circle", "box", "polygon") if k in t]
+    kinds = [k for k in ("circle", "box", "polygon", "border") if k in t]
     if len(kinds) != 1:
         what = "no shape" if not kinds else f"several shapes ({' and '.join(kinds)})"
         add_error(errs, path, f"{what}; give exactly one of circle = [cx, cy, r], "
-                              "box = [x0, y0, x1, y1] or polygon = [[x, y], ...]")
+                              "box = [x0, y0, x1, y1], polygon = [[x, y], ...] or border = <width>")
     where = {}
     for k in kinds:
         sub = f"{path}.{k}"
-        if k == "circle":
+        if k == "border":
+            w = read_number(t[k], sub, errs, f"the width of the frame inside the outline, a length in {units.length}")
+            if w is not None and not w > 0:
+                add_error(errs, sub, f"must be > 0 {units.length}, got {number_text(w)}")
+                w = None
+            if w is not None and keep == "empty":
+                add_error(errs, f"{path}.keep", 'a border is a solid frame: keep = "solid"')
+                w = None
+            where[k] = None if w is None else (w,)
+        elif k == "circle":
             where[k] = read_circle(t[k], sub, errs, units.length)
         elif k == "box":
             where[k] = read_box(t[k], sub, errs)
@@ -571,6 +625,18 @@ def _parse_goal(data, errs):
     if t is None:
         return None
     check_keys(t, _GOAL_KEYS, "goal", errs)
+    if "open_area" in t:
+        if "material" in t:
+            add_error(errs, "goal.open_area", "give either material or open_area (open_area = "
+                                              "1 - material), not both")
+            return None
+        a = read_number(t["open_area"], "goal.open_area", errs,
+                        "the open share of the panel, a number between 0 and 1")
+        if a is not None and not 0.0 < a < 1.0:
+            add_error(errs, "goal.open_area", f"the open share must lie between 0 and 1 (both "
+                                              f"excluded), got {number_text(a)}")
+            a = None
+        return None if a is None else Goal(material=1.0 - a)
     m = read_field(t, "material", "goal", errs,
                    "the target material fraction of the domain area, a number between 0 and 1")
     if m is not None and not 0.0 < m < 1.0:
@@ -580,9 +646,29 @@ def _parse_goal(data, errs):
     return None if m is None else Goal(material=m)
 
 
-def _parse_fabrication(data, units, errs):
-    """Fabrication limits, lengths, from a [fabrication] table or from [goal] (not both)."""
+def _parse_fabrication(data, units, errs, material=None):
+    """Fabrication limits, lengths, from a [fabrication] table or from [goal] (not both);
+    a ``process`` fills the limits not given from the sheet thickness."""
     found = {}
+    extra = {}
+    t = data.get("fabrication")
+    if isinstance(t, dict):
+        if "process" in t:
+            v = t["process"]
+            if isinstance(v, str) and v in PROCESSES:
+                extra["process"] = v
+            else:
+                add_error(errs, "fabrication.process", f"no thickness rule for {show(v)}; use "
+                                                       f"{quoted_list(tuple(PROCESSES))}")
+        if "edge_distance" in t:
+            v = read_number(t["edge_distance"], "fabrication.edge_distance", errs,
+                            f"a length in {units.length}")
+            if v is not None and not v > 0:
+                add_error(errs, "fabrication.edge_distance", f"must be > 0 {units.length}, "
+                                                             f"got {number_text(v)}")
+                v = None
+            if v is not None:
+                extra["edge_distance"] = v
     for section in ("goal", "fabrication"):
         t = data.get(section)
         if section == "fabrication" and t is not None and not isinstance(t, dict):
@@ -591,7 +677,7 @@ def _parse_fabrication(data, units, errs):
         if not isinstance(t, dict):
             continue
         if section == "fabrication":
-            check_keys(t, _FABRICATION_KEYS, "fabrication", errs)
+            check_keys(t, _FABRICATION_KEYS + _FABRICATION_OTHER, "fabrication", errs)
         for key in _FABRICATION_KEYS:
             if key not in t:
                 continue
@@ -604,7 +690,23 @@ def _parse_fabrication(data, units, errs):
                 add_error(errs, path, f"must be > 0 {units.length}, got {number_text(v)}")
                 v = None
             found[key] = (path, v)
-    return Fabrication(**{k: v for k, (_, v) in found.items()})
+    limits = {k: v for k, (_, v) in found.items()}
+    if "process" in extra and material is not None:
+        member, hole, edge = process_defaults(extra["process"], material.thickness)
+        limits.setdefault("min_member", member)
+        limits.setdefault("min_hole", hole)
+        extra.setdefault("edge_distance", edge)
+    return Fabrication(**limits, **extra)
+
+
+def _resolve_borders(regions, domain):
+    """A border region's band runs inside the outline: give it the outline's points."""
+    out = []
+    for r in regions:
+        if r.kind == "border":
+            r = border_region(r.where[0], domain.outline, (), f"{r.key}.border")
+        out.append(r)
+    return out
 
 
 def _parse_method(data, units, errs):
